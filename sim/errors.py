@@ -1,0 +1,33 @@
+"""The one error type for bad user input.
+
+Every problem found in a robot file, scenario file, command log or trace is
+raised as :class:`InputError`.  The command line turns it into
+``file:line: message`` and exit code 2; library users can catch it.
+"""
+from __future__ import annotations
+
+
+class InputError(Exception):
+    """Bad user input, located in a file.
+
+    Parameters
+    ----------
+    source : str or None
+        File name as the user gave it (or ``"<inline>"``).
+    line : int or None
+        1-based line number, when known.
+    message : str
+        What is wrong and what is allowed.
+    """
+
+    def __init__(self, source: str | None, line: int | None, message: str):
+        self.source = source
+        self.line = line
+        self.message = message
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        where = self.source or "<input>"
+        if self.line is not None:
+            where = f"{where}:{self.line}"
+        return f"{where}: {self.message}"

@@ -1,0 +1,267 @@
+"""Robot descriptions: the frozen :class:`Robot` and :class:`Wheel`, and the file reader.
+
+Frames and units (REP 103): body frame x forward, y left, angles CCW from
+body +x; metres, radians, seconds.  See README "Robot file" for the format.
+"""
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field
+from functools import cached_property
+
+import numpy as np
+
+from . import fields as F
+from .errors import InputError
+from .yamlread import Map, load_file
+
+WHEEL_TYPES = ("fixed", "steered", "castor", "swedish", "ball")
+TYPE_CODE = {t: i for i, t in enumerate(WHEEL_TYPES)}
+
+_COMMON = ("name", "type", "x", "y", "heading", "radius", "driven",
+           "max_spin", "max_spin_accel", "encoder")
+_EXTRA = {
+    "fixed": (),
+    "steered": ("steer_limits", "max_steer_rate", "steer_resolution"),
+    "castor": ("trail", "steer_resolution"),
+    "swedish": ("roller",),
+    "ball": (),
+}
+_ROBOT_KEYS = ("name", "footprint", "wheels")
+
+
+@dataclass(frozen=True)
+class Wheel:
+    """One wheel of a base.
+
+    Attributes
+    ----------
+    name : str
+    type : str
+        ``fixed`` | ``steered`` | ``castor`` | ``swedish`` | ``ball``.
+    x, y : float
+        m, body frame.  Contact point for fixed, Swedish and ball wheels;
+        steering axis (through the contact point) for steered wheels; steering
+        axis for castors, whose contact lies ``trail`` behind it.
+    heading : float
+        rad, direction of travel of the contact for positive spin, CCW from
+        body +x.  For steered wheels and castors, the starting angle.
+    radius : float
+        m.
+    driven : bool
+        Has a drive motor (gives a rolling constraint row).
+    max_spin, max_spin_accel : float
+        rad/s, rad/s^2; ``inf`` when unlimited.
+    steer_limits : (float, float)
+        rad; ``(-inf, inf)`` when unlimited (steered only).
+    max_steer_rate : float
+        rad/s; ``inf`` when unlimited (steered only).
+    trail : float
+        m, castor only (0 otherwise).
+    roller : float
+        rad, Swedish roller angle gamma (0 otherwise).
+    encoder : int or None
+        Encoder counts per wheel revolution, if the wheel is measured.
+    steer_resolution : float or None
+        rad, resolution of the steering angle sensor.
+    """
+
+    name: str
+    type: str
+    x: float
+    y: float
+    heading: float
+    radius: float
+    driven: bool
+    max_spin: float = math.inf
+    max_spin_accel: float = math.inf
+    steer_limits: tuple = (-math.inf, math.inf)
+    max_steer_rate: float = math.inf
+    trail: float = 0.0
+    roller: float = 0.0
+    encoder: int | None = None
+    steer_resolution: float | None = None
+    line: int | None = field(default=None, compare=False)
+
+    @property
+    def steerable(self) -> bool:
+        """Angle changes during a run (steered by a motor, or a passive castor)."""
+        return self.type in ("steered", "castor")
+
+    @property
+    def standard(self) -> bool:
+        """Fixed or steered standard wheel: has a no-sliding constraint."""
+        return self.type in ("fixed", "steered")
+
+
+@dataclass(frozen=True)
+class Robot:
+    """A wheeled base: a name, a footprint for drawing, and its wheels in file order."""
+
+    name: str
+    wheels: tuple
+    length: float = 0.6
+    width: float = 0.4
+    source: str = "<inline>"
+
+    def wheel(self, name: str) -> Wheel:
+        for w in self.wheels:
+            if w.name == name:
+                return w
+        raise KeyError(name)
+
+    @cached_property
+    def index(self) -> dict:
+        """Wheel name -> position in file order."""
+        return {w.name: i for i, w in enumerate(self.wheels)}
+
+    @cached_property
+    def arrays(self) -> "WheelArrays":
+        return WheelArrays.of(self.wheels)
+
+    @cached_property
+    def size(self) -> float:
+        """m, characteristic length: RMS wheel distance from the origin (1 m if all at 0)."""
+        a = self.arrays
+        s = float(np.sqrt(np.mean(a.x ** 2 + a.y ** 2))) if len(a.x) else 0.0
+        return s if s > 1e-9 else 1.0
+
+
+@dataclass(frozen=True, eq=False)
+class WheelArrays:
+    """The wheels as arrays, shape (n,) each, in file order (derived once)."""
+
+    x: np.ndarray
+    y: np.ndarray
+    heading: np.ndarray
+    radius: np.ndarray
+    roller: np.ndarray
+    trail: np.ndarray
+    code: np.ndarray
+    driven: np.ndarray
+    max_spin: np.ndarray
+    max_spin_accel: np.ndarray
+    steer_lo: np.ndarray
+    steer_hi: np.ndarray
+    max_steer_rate: np.ndarray
+
+    @classmethod
+    def of(cls, wheels) -> "WheelArrays":
+        f = lambda attr: np.array([getattr(w, attr) for w in wheels], dtype=float)
+        return cls(
+            x=f("x"), y=f("y"), heading=f("heading"), radius=f("radius"),
+            roller=f("roller"), trail=f("trail"),
+            code=np.array([TYPE_CODE[w.type] for w in wheels], dtype=int),
+            driven=np.array([w.driven for w in wheels], dtype=bool),
+            max_spin=f("max_spin"), max_spin_accel=f("max_spin_accel"),
+            steer_lo=np.array([w.steer_limits[0] for w in wheels], dtype=float),
+            steer_hi=np.array([w.steer_limits[1] for w in wheels], dtype=float),
+            max_steer_rate=f("max_steer_rate"),
+        )
+
+    def is_(self, *types) -> np.ndarray:
+        """Boolean mask, shape (n,), of wheels of the given types."""
+        return np.isin(self.code, [TYPE_CODE[t] for t in types])
+
+
+def load_robot(path: str | os.PathLike) -> Robot:
+    """Read and validate a robot file.  Raises :class:`InputError`."""
+    source = os.fspath(path)
+    return robot_from_data(load_file(source), source)
+
+
+def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None) -> Robot:
+    """Validate parsed YAML (a mapping) into a :class:`Robot`."""
+    where = where or F.Where(source, "", getattr(data, "line", 1) or 1)
+    if data is None:
+        raise where.error("empty robot description; expected a mapping with 'wheels'")
+    data = F.expect_map(data, where, "a robot description (a mapping with name, footprint, wheels)")
+    F.check_keys(data, _ROBOT_KEYS, where, required=("wheels",))
+    name = F.name(data["name"], where.at(data, "name")) if "name" in data else "robot"
+    length, width = 0.6, 0.4
+    if "footprint" in data:
+        fw = where.at(data, "footprint")
+        fp = F.expect_map(data["footprint"], fw, "a mapping {length, width}")
+        F.check_keys(fp, ("length", "width"), fw, required=("length", "width"))
+        length = F.number(fp["length"], fw.at(fp, "length"), positive=True, unit="m")
+        width = F.number(fp["width"], fw.at(fp, "width"), positive=True, unit="m")
+    ww = where.at(data, "wheels")
+    items = F.expect_list(data["wheels"], ww, "a list of wheels")
+    if not items:
+        raise ww.error("a base needs at least one wheel")
+    wheels, seen = [], {}
+    for i, item in enumerate(items):
+        w = _wheel(item, ww.at(items, i))
+        if w.name in seen:
+            raise ww.at(items, i).error(f"duplicate wheel name '{w.name}' (first used on line {seen[w.name]})")
+        seen[w.name] = w.line
+        wheels.append(w)
+    return Robot(name=name, wheels=tuple(wheels), length=length, width=width, source=source)
+
+
+def _wheel(item, where: F.Where) -> Wheel:
+    item = F.expect_map(item, where, "a wheel mapping")
+    F.check_keys(item, _COMMON + tuple(k for ks in _EXTRA.values() for k in ks), where,
+                 required=("name", "type", "x", "y", "radius"))
+    at = lambda k: where.at(item, k)
+    wtype = F.choice(item["type"], WHEEL_TYPES, at("type"))
+    allowed = _COMMON + _EXTRA[wtype]
+    for key in item:
+        if key not in allowed:
+            owners = [t for t, ks in _EXTRA.items() if key in ks]
+            raise at(key).error(f"'{key}' applies to {'/'.join(owners)} wheels only, not {wtype}")
+    name = F.name(item["name"], at("name"))
+    kw = dict(
+        name=name, type=wtype,
+        x=F.number(item["x"], at("x"), unit="m"),
+        y=F.number(item["y"], at("y"), unit="m"),
+        heading=F.angle(item.get("heading", 0.0), at("heading")),
+        radius=F.number(item["radius"], at("radius"), positive=True, unit="m"),
+        line=where.line,
+    )
+    driven = wtype in ("fixed", "steered", "swedish")
+    if "driven" in item:
+        driven = F.boolean(item["driven"], at("driven"))
+        if driven and wtype == "ball":
+            raise at("driven").error("ball wheels are passive; driven must be false")
+    kw["driven"] = driven
+    if "max_spin" in item:
+        kw["max_spin"] = F.number(item["max_spin"], at("max_spin"), positive=True, unit="rad/s")
+    if "max_spin_accel" in item:
+        kw["max_spin_accel"] = F.number(item["max_spin_accel"], at("max_spin_accel"), positive=True, unit="rad/s^2")
+    if "encoder" in item:
+        e = item["encoder"]
+        if isinstance(e, bool) or not isinstance(e, int) or e <= 0:
+            raise at("encoder").error(f"encoder counts per revolution must be a whole number > 0, got {F.describe(e)}")
+        kw["encoder"] = e
+    if "steer_resolution" in item:
+        kw["steer_resolution"] = F.angle(item["steer_resolution"], at("steer_resolution"))
+        if kw["steer_resolution"] <= 0:
+            raise at("steer_resolution").error("must be > 0")
+    if wtype == "steered":
+        if "steer_limits" in item:
+            sw = at("steer_limits")
+            lim = F.expect_list(item["steer_limits"], sw, "[low, high] angles")
+            if len(lim) != 2:
+                raise sw.error(f"expected [low, high], got {len(lim)} values")
+            lo, hi = (F.angle(v, sw.at(lim, j)) for j, v in enumerate(lim))
+            if not lo < hi:
+                raise sw.error("low limit must be below high limit")
+            if not lo <= kw["heading"] <= hi:
+                raise at("heading").error(
+                    f"starting angle {math.degrees(kw['heading']):g} deg is outside steer_limits "
+                    f"[{math.degrees(lo):g}, {math.degrees(hi):g}] deg")
+            kw["steer_limits"] = (lo, hi)
+        if "max_steer_rate" in item:
+            kw["max_steer_rate"] = F.number(item["max_steer_rate"], at("max_steer_rate"), positive=True, unit="rad/s")
+    if wtype == "castor":
+        if "trail" not in item:
+            raise where.error("castor wheels need 'trail' (m > 0, contact point behind the steering axis)")
+        kw["trail"] = F.number(item["trail"], at("trail"), positive=True, unit="m")
+    if wtype == "swedish" and "roller" in item:
+        g = F.angle(item["roller"], at("roller"))
+        if not -math.pi / 2 + 1e-9 < g < math.pi / 2 - 1e-9:
+            raise at("roller").error(f"roller angle must lie strictly between -90 and 90 deg, got {math.degrees(g):g} deg")
+        kw["roller"] = g
+    return Wheel(**kw)
