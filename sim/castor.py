@@ -14,6 +14,31 @@ from __future__ import annotations
 import numpy as np
 
 
+def _flow_coefficients(x, y, trail, twist, dt):
+    """The step map on ``(sin(s/2), cos(s/2))``, ``s = h - delta``: ``[[C, Sa], [Sb, C]]``.
+
+    Shapes broadcast: ``x, y, trail`` (..., c), ``twist`` (..., 3) or (..., 1, 3).
+    Returns ``(C, Sa, Sb, delta)``.
+    """
+    t = np.asarray(twist, dtype=float)
+    vx, vy, w = t[..., 0], t[..., 1], t[..., 2]
+    ax = vx - w * y
+    ay = vy + w * x
+    # n(h).v = -sin h ax + cos h ay = R cos(h - delta), delta = atan2(-ax, ay)
+    delta = np.arctan2(-ax, ay)
+    c = np.hypot(ax, ay) / trail
+    # u = tan(s/2): du/dt = (a - b u^2)/2, a = c - w, b = c + w; flow of [p, q]' = [[0, a/2], [b/2, 0]] [p, q]
+    a, b = c - w, c + w
+    mu = a * b / 4.0
+    root = np.sqrt(np.abs(mu))
+    tau = root * dt
+    pos, neg = mu > 1e-300, mu < -1e-300
+    safe = np.where(root > 0, root, 1.0)
+    C = np.where(pos, np.cosh(tau), np.where(neg, np.cos(tau), 1.0))
+    Sf = np.where(pos, np.sinh(tau) / safe, np.where(neg, np.sin(tau) / safe, dt))
+    return C, Sf * (a / 2.0), Sf * (b / 2.0), delta
+
+
 def swivel(heading, x, y, trail, twist, dt):
     """Castor headings after ``dt`` s of constant body ``twist``.
 
@@ -28,28 +53,9 @@ def swivel(heading, x, y, trail, twist, dt):
     -------
     ndarray, shape (m,), rad; continuous with ``heading`` (no wrapping).
     """
-    t = np.asarray(twist, dtype=float)
-    vx, vy, w = t[..., 0], t[..., 1], t[..., 2]
-    ax = vx - w * y
-    ay = vy + w * x
-    # n(h).v = -sin h ax + cos h ay = R cos(h - delta), delta = atan2(-ax, ay)
-    R = np.hypot(ax, ay)
-    delta = np.arctan2(-ax, ay)
-    c = R / trail
+    C, Sa, Sb, delta = _flow_coefficients(x, y, trail, twist, dt)
     s = heading - delta
-    # u = tan(s/2): du/dt = (a - b u^2)/2, a = c - w, b = c + w
-    a, b = c - w, c + w
-    mu = a * b / 4.0
-    root = np.sqrt(np.abs(mu))
-    tau = root * dt
-    pos, neg = mu > 1e-300, mu < -1e-300
-    safe = np.where(root > 0, root, 1.0)
-    C = np.where(pos, np.cosh(tau), np.where(neg, np.cos(tau), 1.0))
-    Sf = np.where(pos, np.sinh(tau) / safe, np.where(neg, np.sin(tau) / safe, dt))
     p, q = np.sin(s / 2.0), np.cos(s / 2.0)
-    # [p, q]' = [[0, a/2], [b/2, 0]] [p, q]  (u = p/q)
-    p2 = C * p + Sf * (a / 2.0) * q
-    q2 = C * q + Sf * (b / 2.0) * p
-    s2 = 2.0 * np.arctan2(p2, q2)
+    s2 = 2.0 * np.arctan2(C * p + Sa * q, C * q + Sb * p)
     d = np.mod(s2 - s + np.pi, 2.0 * np.pi) - np.pi
     return heading + d

@@ -177,7 +177,9 @@ class Simulator:
         self.heading[st] = self.heading[st] + np.clip(goal - self.heading[st], -reach, reach)
         # 3. alignment policy
         if self.twist_cmd is not None:
-            err = self.steer_cmd[st] - self.heading[st]
+            # steering error toward the reachable goal (clamped to steer_limits):
+            # a wheel held at its limit is no longer turning, so it drives (and slips)
+            err = goal - self.heading[st]
             if self.align == "wait" and np.any(np.abs(err) > self.align_tolerance):
                 spin_target = np.zeros_like(spin_target)
             elif self.align == "cosine":

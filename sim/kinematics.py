@@ -21,6 +21,7 @@ from .constraints import contact_velocity, motion_rows, rolling_rows
 from .robot import Robot
 
 RANK_TOL = 1e-9
+SLIP_FLOOR = 1e-12  # m/s: residuals below this are rounding and are reported as exactly 0
 STILL = 1e-6  # m/s: a steered wheel's contact point slower than this holds its angle
 
 
@@ -60,7 +61,12 @@ def forward(robot: Robot, heading, spin) -> Forward:
     S = _scale(robot)
     sol, _, rank, _ = np.linalg.lstsq(A * S, b, rcond=RANK_TOL)
     xi = sol * S
-    return Forward(xi, A @ xi - b, wheel, rolling, int(rank))
+    return Forward(xi, snap(A @ xi - b), wheel, rolling, int(rank))
+
+
+def snap(residual):
+    """Residuals (any shape, m/s) with rounding noise below ``SLIP_FLOOR`` set to 0."""
+    return np.where(np.abs(residual) < SLIP_FLOOR, 0.0, residual)
 
 
 def forward_matrix(robot: Robot, heading) -> tuple:

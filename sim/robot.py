@@ -161,8 +161,16 @@ class WheelArrays:
         )
 
     def is_(self, *types) -> np.ndarray:
-        """Boolean mask, shape (n,), of wheels of the given types."""
-        return np.isin(self.code, [TYPE_CODE[t] for t in types])
+        """Boolean mask, shape (n,), of wheels of the given types (read-only, cached)."""
+        cache = self.__dict__.setdefault("_masks", {})
+        mask = cache.get(types)
+        if mask is None:
+            mask = np.zeros(len(self.code), dtype=bool)
+            for t in types:
+                mask |= self.code == TYPE_CODE[t]
+            mask.flags.writeable = False
+            cache[types] = mask
+        return mask
 
 
 def load_robot(path: str | os.PathLike) -> Robot:

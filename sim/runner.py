@@ -11,9 +11,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .chunked import CHUNK, Block, ChunkedSimulator, supported
 from .engine import Simulator, StepResult
 from .scenario import Scenario
-from .trace import TraceWriter, columns, row_values
+from .trace import TraceWriter, columns
 
 
 @dataclass
@@ -58,10 +59,6 @@ class _Checks:
         for c in scen.checks:
             if c.at is not None:
                 self.at_rows[int(round(c.at / scen.step))] = None
-
-    def see(self, k, row: StepResult):
-        if k in self.at_rows:
-            self.at_rows[k] = row
 
     def evaluate(self, res: RunResult, odo_summary) -> list:
         out = []
@@ -154,8 +151,79 @@ def apply_command(sim: Simulator, cmd) -> None:
         sim.stop()
 
 
+def entry_steps(script, dt: float) -> list:
+    """Step index at which each script entry takes effect: the first k with k dt >= at."""
+    out = []
+    for c in script:
+        k = max(0, math.ceil(c.at / dt - 1e-9))
+        while k * dt + 1e-9 * dt < c.at:
+            k += 1
+        while k > 0 and (k - 1) * dt + 1e-9 * dt >= c.at:
+            k -= 1
+        out.append(k)
+    return out
+
+
+def _segments(scen: Scenario, chunk: int):
+    """(first step, number of steps, commands to apply first) covering the run."""
+    ks = entry_steps(scen.script, scen.step)
+    n = scen.steps
+    j, k = 0, 0
+    while k < n:
+        todo = []
+        while j < len(ks) and ks[j] <= k:
+            todo.append(scen.script[j])
+            j += 1
+        nxt = ks[j] if j < len(ks) else n
+        m = min(nxt, n, k + chunk) - k
+        yield k, m, todo
+        k += m
+
+
+def _reference_blocks(scen, odo, on_row, block_rows=1024):
+    sim = Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
+    for k0, m, todo in _segments(scen, block_rows):
+        for c in todo:
+            apply_command(sim, c)
+        rows, extra = [], []
+        for _ in range(m):
+            row = sim.step()
+            rows.append(row)
+            if odo:
+                extra.append(odo.update(row))
+            if on_row is not None:
+                on_row(row)
+        yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
+
+
+def _chunked_blocks(scen, odo):
+    """Blocks of about CHUNK rows; short script segments are planned one by one
+    and moved together."""
+    sim = ChunkedSimulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
+    plans, rows = [], 0
+    for k0, m, todo in _segments(scen, CHUNK):
+        for c in todo:
+            apply_command(sim, c)
+        plans.append(sim.plan(m))
+        rows += m
+        if rows >= CHUNK or k0 + m >= scen.steps:
+            block = sim.move(plans)
+            plans, rows = [], 0
+            yield block, (odo.update_block(block) if odo else None)
+
+
+def use_chunked(scen: Scenario, on_row=None) -> bool:
+    """Whether :func:`run_scenario` takes the chunked engine (``engine='auto'``)."""
+    if on_row is not None or not supported(scen.robot):
+        return False
+    if scen.odometry is not None:
+        from .odometry import Odometer
+        return hasattr(Odometer, "update_block")
+    return True
+
+
 def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: bool = False,
-                 on_row=None) -> RunResult:
+                 on_row=None, engine: str = "auto") -> RunResult:
     """Run ``scen`` to the end.
 
     Parameters
@@ -169,55 +237,40 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         Also return the trace as arrays in ``RunResult.trace`` (memory grows
         with the run; use the CSV for long runs).
     on_row : callable(StepResult) or None
-        Called after every step (a renderer, a progress bar).
+        Called after every step (a renderer, a progress bar); implies the
+        reference engine.
+    engine : ``auto`` | ``reference`` | ``chunked``
+        ``auto`` takes the chunked engine whenever it applies.
     """
-    sim = Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
     odo = None
     if scen.odometry is not None:
         from .odometry import Odometer
         odo = Odometer(scen.odometry, scen.robot, scen.step, scen.start)
+    fast = use_chunked(scen, on_row) if engine == "auto" else engine == "chunked"
+    blocks = _chunked_blocks(scen, odo) if fast else _reference_blocks(scen, odo, on_row)
     extra_cols = tuple(odo.columns) if odo else ()
     header = columns(scen.robot, extra_cols)
     writer = TraceWriter(csv, header) if csv else None
     kept = [] if keep else None
     res = RunResult(scen)
     checks = _Checks(scen)
-    script = scen.script
-    j = 0
     n = scen.steps
-    dt = scen.step
     last_pos = None
     try:
-        for k in range(n):
-            t = k * dt
-            while j < len(script) and script[j].at <= t + 1e-9 * dt:
-                apply_command(sim, script[j])
-                j += 1
-            row = sim.step()
-            extra = odo.update(row) if odo else ()
-            checks.see(k, row)
-            pos = row.pose
-            if last_pos is not None:
-                res.distance += math.hypot(pos[0] - last_pos[0], pos[1] - last_pos[1])
-            last_pos = pos
-            if row.slip > res.peak_slip:
-                res.peak_slip, res.peak_slip_t = row.slip, row.t
-            sf = float(np.linalg.norm(row.shortfall))
-            if sf > res.peak_shortfall:
-                res.peak_shortfall = sf
-            if row.rank < 3 and res.underdetermined_t is None:
-                res.underdetermined_t = row.t
-            res.rows = k + 1
-            res.final_pose = tuple(float(v) for v in pos)
-            if k % every == 0 or k == n - 1:
-                if writer or kept is not None:
-                    vals = row_values(row, extra)
-                    if writer:
-                        writer.write(vals)
-                    if kept is not None:
-                        kept.append(vals)
-            if on_row is not None:
-                on_row(row)
+        for block, extra in blocks:
+            _account(res, checks, block, last_pos)
+            last_pos = block.pose[-1, :2]
+            if writer or kept is not None:
+                k = block.k0 + np.arange(len(block))
+                sel = (k % every == 0) | (k == n - 1)
+                vals = block.values()
+                if extra is not None:
+                    vals = np.hstack([vals, extra])
+                vals = vals[sel]
+                if writer:
+                    writer.write_block(vals)
+                if kept is not None:
+                    kept.append(vals)
     except KeyboardInterrupt:
         res.interrupted = True
     except BaseException:
@@ -230,9 +283,29 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         res.odometry = odo.summary()
     res.checks = checks.evaluate(res, res.odometry)
     if kept is not None:
-        arr = np.asarray(kept) if kept else np.zeros((0, len(header)))
+        arr = np.vstack(kept) if kept else np.zeros((0, len(header)))
         res.trace = {c: arr[:, i] for i, c in enumerate(header)}
     return res
+
+
+def _account(res: RunResult, checks, block, last_pos) -> None:
+    """Fold one block of rows into the running summary."""
+    m = len(block)
+    for k in checks.at_rows:
+        if block.k0 <= k < block.k0 + m:
+            checks.at_rows[k] = block.row(k - block.k0)
+    p = block.pose[:, :2]
+    steps = np.diff(p, axis=0) if last_pos is None else np.diff(np.vstack([last_pos, p]), axis=0)
+    res.distance += float(np.sum(np.hypot(steps[:, 0], steps[:, 1])))
+    i = int(np.argmax(block.slip))
+    if block.slip[i] > res.peak_slip:
+        res.peak_slip, res.peak_slip_t = float(block.slip[i]), float(block.t[i])
+    res.peak_shortfall = max(res.peak_shortfall, float(np.max(np.linalg.norm(block.shortfall, axis=1))))
+    low = np.flatnonzero(block.rank < 3)
+    if len(low) and res.underdetermined_t is None:
+        res.underdetermined_t = float(block.t[low[0]])
+    res.rows = block.k0 + m
+    res.final_pose = tuple(float(v) for v in block.pose[-1])
 
 
 def summary_text(res: RunResult) -> str:

@@ -57,7 +57,11 @@ class TraceWriter:
         self.part = self.path + ".part"
         self.block = block
         self._buf = []
-        self._fh = open(self.part, "w", encoding="ascii", newline="")
+        try:
+            self._fh = open(self.part, "w", encoding="ascii", newline="")
+        except OSError as exc:
+            from .errors import InputError
+            raise InputError(self.path, None, f"cannot write the trace: {exc.strerror}") from None
         self._fh.write(",".join(header) + "\r\n")
         self.rows = 0
 

@@ -6,8 +6,10 @@ of themselves and of each item, so that validators can say
 ``file:line: message``.  Nothing in a file is ever evaluated as code: only the
 safe loader's scalar types (str, int, float, bool, null) are produced.
 
-Aliases are allowed, but the expanded document is capped at
-``MAX_NODES`` values, which stops alias bombs ("billion laughs") at once.
+Aliases and merge keys (``<<``) are allowed, but before anything is expanded
+the document is measured (memoised per node): more than ``MAX_NODES`` values,
+a recursive alias, or nesting deeper than ``MAX_DEPTH`` is refused at once,
+which stops alias bombs ("billion laughs").
 """
 from __future__ import annotations
 
@@ -46,6 +48,55 @@ def line_of(container, key=None, default=None):
     return getattr(container, "line", None) or default
 
 
+MAX_DEPTH = 64
+_MERGE = "tag:yaml.org,2002:merge"
+
+
+def _children(node):
+    if isinstance(node, yaml.SequenceNode):
+        return list(node.value)
+    if isinstance(node, yaml.MappingNode):
+        return [n for pair in node.value for n in pair]
+    return []
+
+
+def _check_size(root, source):
+    """Refuse alias bombs, recursive aliases and deep nesting before expanding anything.
+
+    Counts the values the document expands to, memoised per node so that a
+    bomb costs only its (small) number of distinct nodes.  The error names the
+    innermost value that alone expands past ``MAX_NODES``.
+    """
+    size = {}
+    too_big = MAX_NODES + 1
+
+    def count(node, depth):
+        key = id(node)
+        if key in size:
+            return size[key]
+        if depth > MAX_DEPTH:
+            raise InputError(source, node.start_mark.line + 1,
+                             f"values nested more than {MAX_DEPTH} levels deep; refusing to read it")
+        size[key] = too_big  # a node met again while being counted is a recursive alias
+        n = 1
+        for child in _children(node):
+            n = min(n + count(child, depth + 1), too_big)
+        size[key] = n
+        return n
+
+    if count(root, 0) <= MAX_NODES:
+        return
+    node = root
+    while True:
+        big = [c for c in _children(node) if size.get(id(c), 0) > MAX_NODES and c is not node]
+        if not big or big[0] is root:
+            break
+        node = big[0]
+    raise InputError(source, node.start_mark.line + 1,
+                     f"this value expands to more than {MAX_NODES} values "
+                     "(too many or recursive aliases?); refusing to read it")
+
+
 def _convert(node, loader, source, budget):
     budget[0] -= 1
     if budget[0] < 0:
@@ -67,19 +118,49 @@ def _convert(node, loader, source, budget):
             out.lines.append(item.start_mark.line + 1)
         return out
     if isinstance(node, yaml.MappingNode):
-        loader.flatten_mapping(node)
+        # Merge keys (``<<: *anchor`` or ``<<: [*a, *b]``): merged keys fill in
+        # what the mapping does not say itself; earlier merged mappings win.
+        merged, mlines = {}, {}
+        explicit = Map()
+        explicit.line = line
+        explicit.lines = {}
+        for knode, vnode in node.value:
+            kline = knode.start_mark.line + 1
+            if knode.tag == _MERGE:
+                if "<<" in explicit.lines:
+                    raise InputError(source, kline, "key '<<' appears twice in the same mapping")
+                explicit.lines["<<"] = kline
+                subs = vnode.value if isinstance(vnode, yaml.SequenceNode) else [vnode]
+                for sub in subs:
+                    if not isinstance(sub, yaml.MappingNode):
+                        raise InputError(source, sub.start_mark.line + 1,
+                                         "'<<' merges a mapping or a list of mappings")
+                    m = _convert(sub, loader, source, budget)
+                    for k, v in m.items():
+                        if k not in merged:
+                            merged[k] = v
+                            mlines[k] = m.lines.get(k, kline)
+                continue
+            key = _convert(knode, loader, source, budget)
+            if not isinstance(key, (str, int, float, bool)) or key is None:
+                raise InputError(source, kline, "mapping keys must be plain names")
+            if key in explicit:
+                raise InputError(source, kline, f"key '{key}' appears twice in the same mapping")
+            explicit[key] = _convert(vnode, loader, source, budget)
+            explicit.lines[key] = kline
+        explicit.lines.pop("<<", None)
+        if not merged:
+            return explicit
         out = Map()
         out.line = line
         out.lines = {}
-        for knode, vnode in node.value:
-            key = _convert(knode, loader, source, budget)
-            kline = knode.start_mark.line + 1
-            if not isinstance(key, (str, int, float, bool)) or key is None:
-                raise InputError(source, kline, "mapping keys must be plain names")
-            if key in out:
-                raise InputError(source, kline, f"key '{key}' appears twice in the same mapping")
-            out[key] = _convert(vnode, loader, source, budget)
-            out.lines[key] = kline
+        for k, v in merged.items():
+            if k not in explicit:
+                out[k] = v
+                out.lines[k] = mlines[k]
+        for k, v in explicit.items():
+            out[k] = v
+            out.lines[k] = explicit.lines[k]
         return out
     raise InputError(source, line, "unsupported YAML node")  # pragma: no cover
 
@@ -94,9 +175,15 @@ def load_text(text: str, source: str = "<inline>"):
     """
     loader = yaml.SafeLoader(text)
     try:
-        node = loader.get_single_node()
+        try:
+            node = loader.get_single_node()
+        except RecursionError:
+            mark = loader.get_mark()
+            raise InputError(source, mark.line + 1,
+                             "values nested too deeply; refusing to read it") from None
         if node is None:
             return None
+        _check_size(node, source)
         return _convert(node, loader, source, [MAX_NODES])
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark

@@ -49,10 +49,16 @@ def run(args) -> int:
         from ..cexport import c_header
         text = c_header(robot, matrices(robot, heading), heading, os.path.basename(args.robot))
         if args.output:
+            from ..errors import InputError
             tmp = args.output + ".part"
-            with open(tmp, "w", encoding="ascii") as fh:
-                fh.write(text)
-            os.replace(tmp, args.output)
+            try:
+                with open(tmp, "w", encoding="ascii") as fh:
+                    fh.write(text)
+                os.replace(tmp, args.output)
+            except OSError as exc:
+                if os.path.exists(tmp):
+                    os.remove(tmp)
+                raise InputError(args.output, None, f"cannot write the header: {exc.strerror}") from None
             print(f"wrote {args.output}")
         else:
             sys.stdout.write(text)
