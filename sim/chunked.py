@@ -222,10 +222,9 @@ class ChunkedSimulator(Simulator):
             A, _, _ = motion_rows(self.robot, heading)
             S = _scale(self.robot)
             if len(A):
-                P = np.linalg.pinv(A * S, rcond=RANK_TOL) * S[:, None]
-                rank = int(np.linalg.matrix_rank(A * S, tol=None))
-                sv = np.linalg.svd(A * S, compute_uv=False)
+                U, sv, Vt = np.linalg.svd(A * S, full_matrices=False)
                 rank = int(np.sum(sv > RANK_TOL * max(1.0, sv[0])))
+                P = (Vt[:rank].T / sv[:rank]) @ U[:, :rank].T * S[:, None]
             else:
                 P, rank = np.zeros((3, 0)), 0
             hit = (A, P, rank)
@@ -384,12 +383,18 @@ class ChunkedSimulator(Simulator):
         x = np.cumsum(np.concatenate([[self.pose[0]], c * inc[:, 0] - s * inc[:, 1]]))
         y = np.cumsum(np.concatenate([[self.pose[1]], s * inc[:, 0] + c * inc[:, 1]]))
         pose = np.stack([x[:-1], y[:-1], theta[:-1]], axis=1)
+        # ICR in the world: fixed while the twist is; computed at the first row of each run
         w = xi[:, 2]
         turning = np.abs(w) > ICR_OMEGA_MIN
         ws = np.where(turning, w, 1.0)
         px, py = -xi[:, 1] / ws, xi[:, 0] / ws
         icr = np.stack([np.where(turning, pose[:, 0] + c * px - s * py, np.nan),
                         np.where(turning, pose[:, 1] + s * px + c * py, np.nan)], axis=1)
+        same = np.zeros(m, bool)
+        same[1:] = np.all(xi[1:] == xi[:-1], axis=1)
+        if np.any(same):
+            first = np.maximum.accumulate(np.where(same, 0, np.arange(m)))
+            icr = icr[first]
         angle = np.cumsum(np.vstack([self.angle[None, :], spin * dt]), axis=0)
         spin_cmd = np.full((m, n), np.nan)
         spin_cmd[:, d] = np.concatenate([p["targets"] for p in plans])

@@ -121,6 +121,8 @@ def angle(value, where: Where) -> float:
         if not math.isfinite(v):
             raise where.error(f"expected a finite angle, got '{value}'")
         return math.radians(v) if m.group(2) == "deg" else v
+    if isinstance(value, float) and not math.isfinite(value):
+        raise where.error(f"expected a finite angle, got {value}")
     try:
         return number(value, where, unit="rad")
     except InputError:

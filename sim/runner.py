@@ -15,6 +15,7 @@ from .chunked import CHUNK, Block, ChunkedSimulator, supported
 from .engine import Simulator, StepResult
 from .scenario import Scenario
 from .trace import TraceWriter, columns
+from .tracemeta import write_meta
 
 
 @dataclass
@@ -186,13 +187,19 @@ def _reference_blocks(scen, odo, on_row, block_rows=1024):
         for c in todo:
             apply_command(sim, c)
         rows, extra = [], []
-        for _ in range(m):
-            row = sim.step()
-            rows.append(row)
-            if odo:
-                extra.append(odo.update(row))
-            if on_row is not None:
-                on_row(row)
+        try:
+            for _ in range(m):
+                row = sim.step()
+                rows.append(row)
+                if odo:
+                    extra.append(odo.update(row))
+                if on_row is not None:
+                    on_row(row)
+        except KeyboardInterrupt:
+            rows = rows[:len(extra)] if odo else rows
+            if rows:  # an interrupted run keeps the rows made so far
+                yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
+            raise
         yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
 
 
@@ -279,6 +286,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         raise
     if writer:
         writer.close()
+        write_meta(csv, scen, header, every, writer.rows, not res.interrupted)
     if odo:
         res.odometry = odo.summary()
     res.checks = checks.evaluate(res, res.odometry)

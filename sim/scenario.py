@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import csv
 import hashlib
+import io
 import math
 import os
 from dataclasses import dataclass, replace
@@ -243,12 +244,17 @@ def _commands_csv(value, where, base_dir, robot):
     path = value if os.path.isabs(value) else os.path.join(base_dir, value)
     src = os.path.relpath(path) if not os.path.isabs(value) else path
     try:
-        fh = open(path, newline="", encoding="utf-8")
+        with open(path, "rb") as fb:
+            raw = fb.read()
     except OSError:
         raise where.error(f"command log '{value}' not found") from None
+    try:
+        fh = io.StringIO(raw.decode("utf-8"), newline="")
+    except UnicodeDecodeError as exc:
+        raise InputError(src, raw[: exc.start].count(b"\n") + 1, "command log is not UTF-8 text") from None
     out = []
     with fh:
-        reader = csv.reader(fh)
+        reader = csv.reader(fh, strict=True)
         try:
             header = next(reader)
         except StopIteration:

@@ -14,6 +14,8 @@ import os
 
 import numpy as np
 
+from .floatfmt import format_block
+
 BASE_COLUMNS = ("t", "x", "y", "theta", "vx", "vy", "omega", "icr_x", "icr_y", "slip",
                 "cmd_vx", "cmd_vy", "cmd_omega")
 WHEEL_FIELDS = ("spin_cmd", "spin", "steer_cmd", "steer", "slip_long", "slip_lat")
@@ -36,50 +38,67 @@ def row_values(r, extra=()) -> np.ndarray:
 
 
 def format_rows(block: np.ndarray) -> str:
-    """RFC 4180 text of float rows, shape (m, ncols): repr floats, nan as blank."""
-    out = []
-    for row in block.tolist():
-        out.append(",".join(map(repr, row)))
-    text = "\r\n".join(out) + "\r\n" if out else ""
-    return text.replace("nan", "")
+    """RFC 4180 text of float rows, shape (m, ncols): shortest round-trip floats, NaN blank."""
+    return format_block(np.asarray(block, dtype=float)).decode("ascii")
 
 
 class TraceWriter:
     """Stream rows to ``path`` through ``path + '.part'``.
 
     ``close()`` renames the finished file into place; ``abort()`` removes it
-    (used when a run fails for a reason that is not an interruption).
-    Buffered in blocks of ``block`` rows, so memory stays flat.
+    (used when a run fails for a reason that is not an interruption).  Rows
+    are formatted in pieces of at most ``block`` rows (optionally on a thread
+    pool), written in order; memory stays bounded by a few pieces.
     """
 
-    def __init__(self, path, header, block: int = 4096):
+    def __init__(self, path, header, block: int = 8192, threads: int = 1):
+        from concurrent.futures import ThreadPoolExecutor
         self.path = os.fspath(path)
         self.part = self.path + ".part"
         self.block = block
         self._buf = []
         try:
-            self._fh = open(self.part, "w", encoding="ascii", newline="")
+            self._fh = open(self.part, "wb")
         except OSError as exc:
             from .errors import InputError
             raise InputError(self.path, None, f"cannot write the trace: {exc.strerror}") from None
-        self._fh.write(",".join(header) + "\r\n")
+        self._fh.write((",".join(header) + "\r\n").encode("utf-8"))
+        self._pool = ThreadPoolExecutor(max_workers=threads) if threads > 1 else None
+        self._pending = []
+        self._depth = max(2, threads + 1)
         self.rows = 0
 
     def write(self, values) -> None:
         self._buf.append(values)
         if len(self._buf) >= self.block:
-            self.flush()
+            self._submit(np.asarray(self._buf))
+            self._buf = []
 
     def write_block(self, block: np.ndarray) -> None:
-        self.flush()
-        self._fh.write(format_rows(block))
+        if self._buf:
+            self._submit(np.asarray(self._buf))
+            self._buf = []
+        self._submit(np.asarray(block, dtype=float))
+
+    def _submit(self, block) -> None:
+        if len(block) > self.block:
+            for i in range(0, len(block), self.block):
+                self._submit(block[i:i + self.block])
+            return
         self.rows += len(block)
+        if self._pool is None:
+            self._fh.write(format_block(block))
+            return
+        self._pending.append(self._pool.submit(format_block, block))
+        while len(self._pending) > self._depth:
+            self._fh.write(self._pending.pop(0).result())
 
     def flush(self) -> None:
         if self._buf:
-            self._fh.write(format_rows(np.asarray(self._buf)))
-            self.rows += len(self._buf)
+            self._submit(np.asarray(self._buf))
             self._buf = []
+        while self._pending:
+            self._fh.write(self._pending.pop(0).result())
         self._fh.flush()
 
     def close(self) -> None:
@@ -88,11 +107,18 @@ class TraceWriter:
         self.flush()
         self._fh.close()
         self._fh = None
+        if self._pool:
+            self._pool.shutdown()
         os.replace(self.part, self.path)
 
     def abort(self) -> None:
         if self._fh is None:
             return
+        for f in self._pending:
+            f.cancel()
+        self._pending = []
+        if self._pool:
+            self._pool.shutdown()
         self._fh.close()
         self._fh = None
         try:

@@ -173,7 +173,10 @@ def load_text(text: str, source: str = "<inline>"):
     InputError
         Malformed YAML, more than one document, or an alias bomb.
     """
-    loader = yaml.SafeLoader(text)
+    try:
+        loader = yaml.SafeLoader(text)
+    except yaml.reader.ReaderError as exc:  # checked up front for the first characters
+        raise _reader_error(exc, text, source) from None
     try:
         try:
             node = loader.get_single_node()
@@ -188,12 +191,23 @@ def load_text(text: str, source: str = "<inline>"):
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         line = mark.line + 1 if mark is not None else None
+        if line is not None:  # "end of file" errors sit on the line after the last one
+            line = max(1, min(line, len(text.splitlines()) or 1))
         what = exc.problem or exc.context or "malformed YAML"
         raise InputError(source, line, f"malformed YAML: {what}") from None
+    except yaml.reader.ReaderError as exc:
+        raise _reader_error(exc, text, source) from None
     except yaml.YAMLError as exc:
         raise InputError(source, None, f"malformed YAML: {exc}") from None
     finally:
         loader.dispose()
+
+
+def _reader_error(exc, text: str, source: str) -> InputError:
+    """A character YAML does not allow (NUL, other control characters)."""
+    pos = exc.position if isinstance(exc.position, int) else 0
+    line = text.count("\n", 0, pos) + 1
+    return InputError(source, line, f"character #x{exc.character:04x} is not allowed in YAML text")
 
 
 def load_file(path: str | os.PathLike):

@@ -1,0 +1,203 @@
+"""Fast, exact text for arrays of floats: the same strings as Python's ``repr``.
+
+Writing a trace spends most of its time turning floats into text; ``repr``
+costs about half a microsecond per value.  This module produces the same
+shortest round-trip strings for whole arrays with numpy:
+
+1. for p = 15 and 16 significant digits, round ``|x| * 10**k`` to an integer
+   ``M`` in extended precision and keep it when ``M / 10**k`` (also in extended
+   precision: exact operands, one rounding) lies safely inside the interval of
+   reals that round to ``x``, so it converts back to exactly ``x``;
+2. otherwise take 17 digits rounded in extended precision (``np.longdouble``
+   with a 64-bit or wider significand), which always round-trips;
+3. anything else (exponents outside those ranges, zeros, infinities, or a
+   platform whose ``longdouble`` is plain double) goes through ``repr``.
+
+Digits are laid out as ``repr`` does (positional for 1e-4 <= |x| < 1e16, else
+``d.ddde+XX``), by gathering from a per-value symbol table with a layout
+pattern that depends only on (sign, number of digits, exponent).  NaN becomes
+an empty field (a blank CSV cell).  :func:`format_block` also formats each
+run of repeated values in a column only once.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+_COLS = np.arange(17)[None, :]
+_QUAD = np.array([[48 + (v // 1000) % 10, 48 + (v // 100) % 10, 48 + (v // 10) % 10, 48 + v % 10]
+                  for v in range(10000)], dtype=np.uint8)
+_W = 25  # widest layout: '-' + '0.000' + 17 digits, or '-d.' + 16 digits + 'e-308'
+# symbol indices in the per-value table
+_DOT, _E, _MINUS, _PLUS, _X100, _X10, _X1, _ZERO, _NUL = range(17, 26)
+_E0 = 400  # exponent offset in the layout key
+_patterns = {}
+_table = np.full((2 * 3 * 17 * 800, _W), _NUL, dtype=np.intp)  # key: sign, p, digits, exponent
+_built = np.zeros(2 * 3 * 17 * 800, dtype=bool)
+
+
+def _pattern(neg: int, nd: int, e10: int) -> list:
+    """Symbol indices of the repr layout for ``nd`` digits, decimal exponent ``e10``."""
+    out = [_MINUS] if neg else []
+    if -4 <= e10 < 16:
+        if e10 >= 0:
+            n_int = e10 + 1
+            out += [j if j < nd else _ZERO for j in range(n_int)] + [_DOT]
+            out += list(range(n_int, nd)) if nd > n_int else [_ZERO]
+        else:
+            out += [_ZERO, _DOT] + [_ZERO] * (-e10 - 1) + list(range(nd))
+    else:
+        out += [0] + ([_DOT] + list(range(1, nd)) if nd > 1 else [])
+        out += [_E, _MINUS if e10 < 0 else _PLUS] + ([_X100] if abs(e10) >= 100 else []) + [_X10, _X1]
+    return out + [_NUL] * (_W - len(out))
+
+
+def _p10_table():
+    """10**k for k in [-_KMAX, _KMAX] as double-doubles (hi + lo, |lo| <= ulp(hi)/2)."""
+    from fractions import Fraction
+    hi = np.empty(2 * _KMAX + 1)
+    lo = np.empty(2 * _KMAX + 1)
+    for i, k in enumerate(range(-_KMAX, _KMAX + 1)):
+        exact = Fraction(10) ** k
+        h = float(exact)
+        hi[i], lo[i] = h, float(exact - Fraction(h))
+    return hi, lo
+
+
+_KMAX = 300
+_P10 = None
+
+
+def _split(a):
+    c = 134217729.0 * a  # Veltkamp split for Dekker's exact product
+    h = c - (c - a)
+    return h, a - h
+
+
+def _mantissas(a):
+    """17-digit mantissas and the 16- and 15-digit ones that also round-trip.
+
+    ``a`` > 0 (finite, normal, below 1e300).  ``a * 10**k`` is formed as a
+    double-double (Dekker's exact product with a double-double power of ten,
+    error about 2**-104 relative), so ``a * 10**k = M17 + frac`` with
+    ``|frac| <= 1/2`` is known to far better than a unit.  A p-digit candidate
+    is kept when its distance to ``a`` is below 0.499 of half the gap to the
+    nearer neighbouring double: it then converts back to exactly ``a``.
+    Returns ``(M, p, e10, ok)`` with the shortest p in {15, 16, 17} found.
+    """
+    global _P10
+    if _P10 is None:
+        _P10 = _p10_table()
+    e10 = np.floor(np.log10(a)).astype(np.int64)
+    for _ in range(2):
+        k = np.clip(16 - e10, -_KMAX, _KMAX)
+        ph, pl = _P10[0][k + _KMAX], _P10[1][k + _KMAX]
+        # exact product a * ph = hi + err (Dekker), then add a * pl
+        hi = a * ph
+        ah, al = _split(a)
+        bh, bl = _split(ph)
+        err = ((ah * bh - hi) + ah * bl + al * bh) + al * bl
+        lo = err + a * pl
+        r = np.rint(hi)
+        f = (hi - r) + lo
+        rf = np.rint(f)
+        M17 = r.astype(np.int64) + rf.astype(np.int64)
+        frac = f - rf  # a * 10**k = M17 + frac
+        up, down = M17 >= 10 ** 17, M17 < 10 ** 16
+        if not np.any(up | down):
+            break
+        e10 = e10 + up - down  # log10 was off by one next to a power of ten
+    gap = np.minimum(np.spacing(a), a - np.nextafter(a, 0.0)) * ph  # in units of 10**-k
+    limit = 0.499 * gap  # 0.998 of the half gap
+    M, p = M17.copy(), np.full(len(a), 17)
+    ok = (np.abs(frac) < limit) & ~up & ~down & (np.abs(16 - e10) < _KMAX)
+    for digits, div in ((16, 10), (15, 100)):
+        q, rem = np.divmod(M17, div)
+        t = (rem + frac) / div
+        cand = q + (t >= 0.5)
+        dist = np.abs((cand * div - M17) - frac)
+        fits = ok & (dist < limit)
+        M = np.where(fits, cand, M)
+        p = np.where(fits, digits, p)
+    return M, p, e10, ok
+
+
+def _chars(x):
+    """Character codes, shape (N, _W) uint8 (0 = nothing), for flat float64 ``x``."""
+    N = len(x)
+    out = np.zeros((N, _W), dtype=np.uint8)
+    normal = np.isfinite(x) & (x != 0.0)
+    a = np.abs(np.where(normal, x, 1.0))
+    normal &= (a < 1e280) & (a > 1e-280)
+    todo = ~normal
+    M = np.zeros(N, dtype=np.int64)
+    e10 = np.zeros(N, dtype=np.int64)
+    nd = np.zeros(N, dtype=np.int64)
+    idx = np.flatnonzero(normal)
+    if len(idx):
+        Mi, pi, ei, ok = _mantissas(a[idx])
+        got = idx[ok]
+        M[got], nd[got], e10[got] = Mi[ok], pi[ok], ei[ok]
+        todo[idx[~ok]] = True
+    use = np.flatnonzero(~todo)
+    if len(use):
+        Mu, pu, eu = M[use], nd[use], e10[use]
+        # 17 digits, zero-padded on the left, four at a time from a lookup table
+        sym = np.empty((len(use), 26), dtype=np.uint8)
+        rem = Mu
+        for c in (13, 9, 5, 1):
+            sym[:, c:c + 4] = _QUAD[rem % 10000]
+            rem = rem // 10000
+        sym[:, 0] = rem + 48
+        # significant digits: p less the trailing zeros (digit j sits at column 17 - p + j)
+        n = np.maximum(pu - np.argmax(sym[:, 16::-1] != 48, axis=1), 1)
+        ae = np.abs(eu)
+        sym[:, _DOT], sym[:, _E], sym[:, _MINUS], sym[:, _PLUS] = 46, 101, 45, 43
+        sym[:, _X100], sym[:, _X10], sym[:, _X1] = ae // 100 + 48, ae // 10 % 10 + 48, ae % 10 + 48
+        sym[:, _ZERO], sym[:, _NUL] = 48, 0
+        key = (((x[use] < 0) * 3 + (pu - 15)) * 17 + (n - 1)) * 800 + np.clip(eu + _E0, 0, 799)
+        missing = np.unique(key[~_built[key]])
+        for kcode in missing.tolist():
+            e = kcode % 800 - _E0
+            rest = kcode // 800
+            nd_, rest = rest % 17 + 1, rest // 17
+            p_, neg = rest % 3 + 15, rest // 3
+            _table[kcode] = [c + 17 - p_ if c < 17 else c for c in _pattern(neg, nd_, e)]
+            _built[kcode] = True
+        out[use] = np.take_along_axis(sym, _table[key], axis=1)
+    for i in np.flatnonzero(todo & ~np.isnan(x)):
+        s = repr(float(x[i])).encode("ascii")
+        out[i, : len(s)] = np.frombuffer(s, dtype=np.uint8)
+    return out
+
+
+def reprs(values) -> list:
+    """The strings of a float array, flattened (as ``repr``; NaN -> ``''``)."""
+    chars = _chars(np.ascontiguousarray(values, dtype=np.float64).reshape(-1))
+    return [bytes(row[row != 0]).decode("ascii") for row in chars]
+
+
+def format_block(values) -> bytes:
+    """CSV text (CRLF line ends) of a float array, shape (m, ncols); NaN -> blank.
+
+    Each run of equal values within a column is formatted once.
+    """
+    v = np.asarray(values, dtype=np.float64)
+    if v.ndim != 2 or v.size == 0:
+        return b""
+    m, ncols = v.shape
+    # runs of repeated values per column (NaN equal to NaN)
+    nan = np.isnan(v)
+    new = np.ones((m, ncols), dtype=bool)
+    new[1:] = (v[1:] != v[:-1]) & ~(nan[1:] & nan[:-1])
+    order = new.T.reshape(-1)  # column-major: unique values column by column
+    uniq = v.T.reshape(-1)[order]
+    run = np.cumsum(order).reshape(ncols, m).T - 1  # (m, ncols) index into uniq
+    chars = _chars(uniq)
+    width = int(np.max(np.count_nonzero(chars, axis=1))) if len(chars) else 0
+    full = np.zeros((m, ncols, width + 2), dtype=np.uint8)
+    full[:, :, :width] = chars[run, :width]
+    full[:, :-1, width] = 44
+    full[:, -1, width] = 13
+    full[:, -1, width + 1] = 10
+    flat = full.reshape(-1)
+    return flat[flat != 0].tobytes()

@@ -1,0 +1,293 @@
+"""Plots of traces: ``trundle plot TRACE.csv -o OUT.png [--compare OTHER.csv]``.
+
+The one module that imports matplotlib (lazily, Agg backend, no pyplot
+state).  :func:`read_trace` reads a trace CSV robustly (blank cells are
+NaN; anything else that is not a number is an :class:`~sim.errors.InputError`
+with file and line) and keeps memory flat: long traces are thinned to at most
+``max_rows`` evenly spaced rows while the slip peak is taken from every row.
+
+The figure (:func:`figure`): the x-y path with heading ticks, start and end
+marks and the ICR points; the body twist against time (commanded dashed);
+per-wheel spin and steer, command (dashed) against actual; total slip against
+time with its peak marked.  A second trace is overlaid in dotted lines.
+"""
+from __future__ import annotations
+
+import csv
+import math
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import InputError
+
+REQUIRED = ("t", "x", "y", "theta")
+# Okabe-Ito colours (as in sim.render), cycled for wheels
+COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442", "#000000")
+PATH, COMPARE, ICR, PEAK = "#0072B2", "#E69F00", "#CC79A7", "#D55E00"
+
+
+@dataclass
+class Trace:
+    """A trace read from CSV.
+
+    data : column name -> ndarray (m,) float (NaN for blank cells), the kept rows.
+    wheels : wheel names in file order.  rows : rows in the file.
+    stride : every ``stride``-th row was kept (plus the last).
+    peak_slip, peak_t : m/s and s, over every row.
+    """
+
+    path: str
+    columns: list
+    data: dict
+    wheels: list
+    rows: int
+    stride: int = 1
+    peak_slip: float = math.nan
+    peak_t: float = math.nan
+    label: str = field(default="")
+
+    def __getitem__(self, name):
+        return self.data[name]
+
+    def has(self, name) -> bool:
+        return name in self.data and bool(np.any(np.isfinite(self.data[name])))
+
+
+def read_trace(path, max_rows: int = 20000) -> Trace:
+    """Read a trace CSV (see README "Traces").  Raises :class:`InputError`."""
+    src = os.fspath(path)
+    try:
+        fh = open(src, newline="", encoding="utf-8")
+    except OSError as exc:
+        raise InputError(src, None, f"cannot read file: {exc.strerror}") from None
+    with fh:
+        reader = csv.reader(fh)
+        try:
+            header = next(reader)
+        except StopIteration:
+            raise InputError(src, 1, "empty file; expected a trace header starting with t,x,y,theta") from None
+        except (csv.Error, UnicodeDecodeError) as exc:
+            raise InputError(src, 1, f"not a readable CSV: {exc}") from None
+        header = [h.strip() for h in header]
+        missing = [c for c in REQUIRED if c not in header]
+        if missing:
+            raise InputError(src, 1, f"not a trace: missing column(s) {', '.join(missing)}")
+        if len(set(header)) != len(header):
+            dup = sorted({c for c in header if header.count(c) > 1})
+            raise InputError(src, 1, f"repeated column(s) {', '.join(dup)}")
+        ncol = len(header)
+        kept, stride, last = [], 1, None
+        ti = header.index("t")
+        si = header.index("slip") if "slip" in header else None
+        peak, peak_t = -math.inf, math.nan
+        i = 0
+        try:
+            for row in reader:
+                ln = reader.line_num
+                if not row or all(not c.strip() for c in row):
+                    continue
+                if len(row) != ncol:
+                    raise InputError(src, ln, f"expected {ncol} cells, got {len(row)}")
+                vals = []
+                for c, cell in zip(header, row):
+                    cell = cell.strip()
+                    if not cell:
+                        vals.append(math.nan)
+                        continue
+                    try:
+                        v = float(cell)
+                    except ValueError:
+                        raise InputError(src, ln, f"column '{c}': expected a number or a blank cell, "
+                                         f"got '{cell[:40]}'") from None
+                    if math.isinf(v):
+                        raise InputError(src, ln, f"column '{c}': expected a finite number, got '{cell}'")
+                    vals.append(v)
+                if math.isnan(vals[ti]):
+                    raise InputError(src, ln, "column 't' is blank")
+                if si is not None and vals[si] > peak:
+                    peak, peak_t = vals[si], vals[ti]
+                if i % stride == 0:
+                    kept.append(vals)
+                    last = None
+                    if len(kept) > 2 * max_rows:
+                        kept = kept[::2]
+                        stride *= 2
+                else:
+                    last = vals
+                i += 1
+        except csv.Error as exc:
+            raise InputError(src, reader.line_num, f"malformed CSV: {exc}") from None
+        except UnicodeDecodeError as exc:
+            raise InputError(src, None, f"not a text file: {exc.reason}") from None
+    if not kept:
+        raise InputError(src, 2, "the trace has no rows")
+    if last is not None:
+        kept.append(last)
+    arr = np.array(kept, dtype=float)
+    data = {c: arr[:, j] for j, c in enumerate(header)}
+    wheels = []
+    for c in header:
+        name, dot, part = c.rpartition(".")
+        if dot and part == "spin" and name not in wheels:
+            wheels.append(name)
+    return Trace(src, header, data, wheels, i, stride, peak if si is not None else math.nan, peak_t,
+                 os.path.basename(src))
+
+
+def _heading_ticks(ax, tr, colour, n=24):
+    x, y, th = tr["x"], tr["y"], tr["theta"]
+    ok = np.isfinite(x) & np.isfinite(y) & np.isfinite(th)
+    if not np.any(ok):
+        return
+    x, y, th = x[ok], y[ok], th[ok]
+    span = max(np.ptp(x), np.ptp(y), 0.1)
+    idx = np.unique(np.linspace(0, len(x) - 1, n).round().astype(int))
+    L = 0.04 * span
+    ax.quiver(x[idx], y[idx], np.cos(th[idx]) * L, np.sin(th[idx]) * L, angles="xy", scale_units="xy",
+              scale=1, color=colour, width=0.004, headwidth=3.5, headlength=4, zorder=3)
+
+
+def figure(traces):
+    """A matplotlib Figure of one or two :class:`Trace` objects (the second overlaid)."""
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(13, 10), dpi=100)
+    gs = fig.add_gridspec(3, 2, width_ratios=(1.05, 1.0), hspace=0.38, wspace=0.22,
+                          left=0.06, right=0.94, top=0.93, bottom=0.06)
+    ax_path = fig.add_subplot(gs[0:2, 0])
+    ax_slip = fig.add_subplot(gs[2, 0])
+    ax_tw = fig.add_subplot(gs[0, 1])
+    ax_spin = fig.add_subplot(gs[1, 1], sharex=ax_tw)
+    ax_steer = fig.add_subplot(gs[2, 1], sharex=ax_tw)
+    main = traces[0]
+    title = main.label if len(traces) == 1 else f"{main.label}  (solid)  vs  {traces[1].label}  (dotted)"
+    fig.suptitle(title, fontsize=13)
+    styles = ("-", ":")
+    # path
+    box = []
+    for j, tr in enumerate(traces):
+        col = PATH if j == 0 else COMPARE
+        ax_path.plot(tr["x"], tr["y"], styles[j], color=col, lw=2, label=f"path {tr.label}", zorder=2)
+        _heading_ticks(ax_path, tr, col)
+        ax_path.plot(tr["x"][0], tr["y"][0], "o", color=col, ms=7, zorder=4)
+        ax_path.plot(tr["x"][-1], tr["y"][-1], "s", color=col, ms=8, zorder=4,
+                     label="start (circle), end (square)" if j == 0 else None)
+        box.append((np.nanmin(tr["x"]), np.nanmax(tr["x"]), np.nanmin(tr["y"]), np.nanmax(tr["y"])))
+    b = np.array(box)
+    x0, x1, y0, y1 = b[:, 0].min(), b[:, 1].max(), b[:, 2].min(), b[:, 3].max()
+    pad = 0.12 * max(x1 - x0, y1 - y0, 0.5)
+    lim = (x0 - pad, x1 + pad, y0 - pad, y1 + pad)
+    for j, tr in enumerate(traces):
+        if tr.has("icr_x"):
+            ix, iy = tr["icr_x"], tr["icr_y"]
+            ok = np.isfinite(ix) & np.isfinite(iy)
+            inside = ok & (ix >= lim[0]) & (ix <= lim[1]) & (iy >= lim[2]) & (iy <= lim[3])
+            step = max(1, int(np.sum(inside)) // 400)
+            sel = np.flatnonzero(inside)[::step]
+            out = int(np.sum(ok & ~inside))
+            lab = "ICR" + (f" ({out} rows beyond the view)" if out else "")
+            ax_path.plot(ix[sel], iy[sel], "x" if j == 0 else "+", color=ICR, ms=5, lw=0, label=lab, zorder=1)
+    ax_path.margins(0.06)
+    ax_path.set_aspect("equal", adjustable="datalim")
+    ax_path.set_xlabel("x (m, world)")
+    ax_path.set_ylabel("y (m, world)")
+    ax_path.set_title("path, heading ticks, ICR")
+    ax_path.grid(True, color="#dddddd")
+    ax_path.legend(loc="best", fontsize=8)
+    # twist
+    ax_w = ax_tw.twinx()
+    for j, tr in enumerate(traces):
+        t = tr["t"]
+        for name, col, ax in (("vx", COLOURS[0], ax_tw), ("vy", COLOURS[1], ax_tw), ("omega", COLOURS[2], ax_w)):
+            unit = "rad/s" if name == "omega" else "m/s"
+            ax.plot(t, tr[name], styles[j], color=col, lw=1.6, label=f"{name} ({unit})" if j == 0 else None)
+            if j == 0 and tr.has("cmd_" + name):
+                ax.plot(t, tr["cmd_" + name], "--", color=col, lw=1.0, alpha=0.8,
+                        label=f"{name} commanded" if name == "vx" else None)
+    for ax, floor in ((ax_tw, 0.05), (ax_w, 0.05)):
+        lo, hi = ax.get_ylim()
+        if hi - lo < 2 * floor:     # a still twist: do not blow rounding noise up to full height
+            mid = 0.5 * (lo + hi)
+            ax.set_ylim(mid - floor, mid + floor)
+    ax_tw.set_ylabel("vx, vy (m/s)")
+    ax_w.set_ylabel("omega (rad/s)")
+    ax_tw.set_title("body twist (commanded dashed)")
+    ax_tw.grid(True, color="#dddddd")
+    h1, l1 = ax_tw.get_legend_handles_labels()
+    h2, l2 = ax_w.get_legend_handles_labels()
+    ax_tw.legend(h1 + h2, l1 + l2, loc="upper right", fontsize=8, ncol=2, framealpha=0.85)
+    # wheels
+    steered_any = False
+    for j, tr in enumerate(traces):
+        t = tr["t"]
+        for i, w in enumerate(main.wheels):
+            col = COLOURS[i % len(COLOURS)]
+            if f"{w}.spin" in tr.data:
+                ax_spin.plot(t, tr[f"{w}.spin"], styles[j], color=col, lw=1.4, label=w if j == 0 else None)
+                if j == 0 and tr.has(f"{w}.spin_cmd"):
+                    ax_spin.plot(t, tr[f"{w}.spin_cmd"], "--", color=col, lw=0.9, alpha=0.8)
+            st = tr.data.get(f"{w}.steer")
+            if st is not None and np.nanmax(st) - np.nanmin(st) > 1e-9:
+                steered_any = True
+                ax_steer.plot(t, np.degrees(st), styles[j], color=col, lw=1.4, label=w if j == 0 else None)
+                sc = tr.data.get(f"{w}.steer_cmd")
+                if j == 0 and sc is not None and np.any(np.isfinite(sc)):
+                    ax_steer.plot(t, np.degrees(sc), "--", color=col, lw=0.9, alpha=0.8)
+    ax_spin.set_ylabel("spin (rad/s)")
+    ax_spin.set_title("wheel spin (command dashed)")
+    ax_spin.grid(True, color="#dddddd")
+    if main.wheels:
+        ax_spin.legend(loc="best", fontsize=8, ncol=2)
+    ax_steer.set_ylabel("steer (deg, body frame)")
+    ax_steer.set_xlabel("t (s)")
+    ax_steer.set_title("wheel steer (command dashed)")
+    ax_steer.grid(True, color="#dddddd")
+    if steered_any:
+        ax_steer.legend(loc="best", fontsize=8, ncol=2)
+    else:
+        ax_steer.text(0.5, 0.5, "no wheel changes its angle", transform=ax_steer.transAxes,
+                      ha="center", va="center", color="#666666")
+    # slip
+    for j, tr in enumerate(traces):
+        if "slip" not in tr.data:
+            continue
+        col = PATH if j == 0 else COMPARE
+        ax_slip.plot(tr["t"], tr["slip"], styles[j], color=col, lw=1.6, label=f"slip {tr.label}")
+        if math.isfinite(tr.peak_slip):
+            ax_slip.plot([tr.peak_t], [tr.peak_slip], "v", color=PEAK, ms=9, zorder=4)
+            ax_slip.annotate(f"peak {tr.peak_slip:.3g} m/s at {tr.peak_t:g} s", (tr.peak_t, tr.peak_slip),
+                             textcoords="offset points", xytext=(8, 4 + 12 * j), fontsize=9, color=PEAK)
+    ax_slip.set_xlabel("t (s)")
+    ax_slip.set_ylabel("slip (m/s, all wheels)")
+    ax_slip.set_title("slip (peak marked)")
+    ax_slip.grid(True, color="#dddddd")
+    top = max((tr.peak_slip for tr in traces if math.isfinite(tr.peak_slip)), default=0.0)
+    top = max(top, 1e-3)
+    ax_slip.set_ylim(-0.05 * top, 1.3 * top)
+    return fig
+
+
+def plot_traces(path, out, compare=None, max_rows: int = 20000):
+    """Read ``path`` (and ``compare``), write the figure as PNG to ``out`` (through ``.part``)."""
+    traces = [read_trace(path, max_rows)]
+    if compare:
+        traces.append(read_trace(compare, max_rows))
+    d = os.path.dirname(os.path.abspath(out))
+    if not os.path.isdir(d):
+        raise InputError("-o", None, f"directory '{os.path.dirname(out) or '.'}' does not exist")
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    fig = figure(traces)
+    FigureCanvasAgg(fig)
+    part = os.fspath(out) + ".part"
+    try:
+        with open(part, "wb") as fh:
+            fig.savefig(fh, format="png", metadata={"Software": None})
+        os.replace(part, out)
+    except BaseException:
+        if os.path.exists(part):
+            os.remove(part)
+        raise
+    return fig, traces

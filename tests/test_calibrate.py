@@ -1,0 +1,285 @@
+"""Odometry calibration: the square test (sim/calibrate.py) and the geometry fit (sim/geomfit.py)."""
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import replace
+
+import numpy as np
+import pytest
+import yaml
+
+from sim import calibrate as C
+from sim import geomfit as G
+from sim.cli import main
+from sim.errors import InputError
+from sim.robot import load_robot, robot_from_data
+from sim.runner import run_scenario
+from sim.scenario import scenario_from_data
+from sim.yamlread import load_file
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+SCEN = os.path.join(HERE, "..", "scenarios")
+CART = os.path.join(SCEN, "robots", "ward-cart.yaml")
+L = 4.0          # m, the paper's square
+FAST = dict(dt=0.25)
+
+
+def as_built(belief, Ed, Eb):
+    """The cart with right/left diameter ratio Ed (mean kept) and wheelbase Eb times the belief's."""
+    w = list(belief.wheels)
+    w[0] = replace(w[0], radius=w[0].radius * 2 / (Ed + 1), y=w[0].y * Eb)
+    w[1] = replace(w[1], radius=w[1].radius * 2 / (1 / Ed + 1), y=w[1].y * Eb)
+    return replace(belief, wheels=tuple(w), source="<as built>")
+
+
+def bf_angles(Ed, Eb, b):
+    """Borenstein & Feng's error angles (from memory of the paper): Eb = 90deg / (90deg - alpha);
+    Ed = (R + b/2) / (R - b/2) with R = (L/2) / sin(beta/2) (b the actual wheelbase)."""
+    alpha = (math.pi / 2) * (1 - 1 / Eb)
+    if Ed == 1:
+        return alpha, 0.0
+    R = (Eb * b / 2) * (Ed + 1) / (Ed - 1)
+    return alpha, 2 * math.asin((L / 2) / R)
+
+
+def bf_returns(alpha, beta):
+    """Centres of gravity predicted by Borenstein & Feng's relations (from memory; first
+    order, start frame x along the first leg, y left):
+    x_cw = y_cw = -2L(alpha + beta), x_ccw = -y_ccw = 2L(beta - alpha)."""
+    return np.array([-2 * L * (alpha + beta)] * 2), np.array([2 * L * (beta - alpha), -2 * L * (beta - alpha)])
+
+
+@pytest.mark.parametrize("Ed,Eb", [(1.002, 1.005), (0.997, 0.994), (1.0, 1.01), (1.003, 1.0)])
+def test_return_errors_follow_borenstein_feng_relations(Ed, Eb):
+    belief = load_robot(CART)
+    runs = C.square_test(as_built(belief, Ed, Eb), belief, runs=3, side=L, **FAST)
+    alpha, beta = bf_angles(Ed, Eb, 0.44)
+    cw, ccw = bf_returns(alpha, beta)
+    scale = max(np.hypot(*cw), np.hypot(*ccw))
+    assert scale > 0.05
+    # first-order relations: agreement to second order (well within 10 % here)
+    assert np.max(np.abs(runs.cw.mean(axis=0) - cw)) < 0.1 * scale
+    assert np.max(np.abs(runs.ccw.mean(axis=0) - ccw)) < 0.1 * scale
+
+
+@pytest.mark.parametrize("Ed,Eb,noise", [(1.004, 1.01, 0.0), (0.996, 0.99, 1.5)])
+def test_corrections_recover_the_factors_and_cut_the_return_error_tenfold(Ed, Eb, noise):
+    belief = load_robot(CART)
+    true = as_built(belief, Ed, Eb)
+    before = C.square_test(true, belief, runs=5, side=L, count_noise=noise, seed=4, **FAST)
+    u = C.analyse(before, 0.44)
+    assert u.Ed == pytest.approx(Ed, abs=0.1 * abs(Ed - 1))
+    assert u.Eb == pytest.approx(Eb, abs=0.1 * abs(Eb - 1))
+    fixed = C.corrected_robot(belief, C.diff_drive(belief), u.Ed, u.Eb)
+    after = C.square_test(true, fixed, runs=5, side=L, count_noise=noise, seed=4, **FAST)
+    e0, e1 = C.centres(before)[2], C.centres(after)[2]
+    assert e0 > 0.2
+    assert e1 < e0 / 10
+
+
+def test_analysis_inverts_the_first_order_relations_exactly():
+    # returns made with the relations themselves give back alpha and beta exactly, and
+    # Ed, Eb by the paper's equations
+    alpha, beta = math.radians(0.8), math.radians(-1.5)
+    cw, ccw = bf_returns(alpha, beta)
+    u = C.analyse(C.SquareRuns(L, np.tile(cw, (5, 1)), np.tile(ccw, (5, 1))), 0.44)
+    assert u.alpha == pytest.approx(alpha, rel=1e-12) and u.beta == pytest.approx(beta, rel=1e-12)
+    assert u.Eb == pytest.approx(90 / (90 - 0.8), rel=1e-12)
+    R = (L / 2) / math.sin(beta / 2)
+    b = u.Eb * 0.44
+    assert u.Ed == pytest.approx((R + b / 2) / (R - b / 2), rel=1e-12)
+    assert u.Ed < 1                       # legs bending right: the right wheel is the smaller
+
+
+def test_cli_simulated_square_test_writes_a_better_robot_file(tmp_path, capsys):
+    belief = load_robot(CART)
+    true = as_built(belief, 1.003, 1.008)
+    tpath = tmp_path / "as-built.yaml"
+    tpath.write_text(C.robot_yaml(true))
+    assert replace(load_robot(tpath), source=true.source) == true      # the writer round-trips
+    out, png = tmp_path / "fixed.yaml", tmp_path / "sq.png"
+    rc = main(["calibrate", CART, "--true", str(tpath), "--runs", "3", "--step", "0.25",
+               "-o", str(out), "--plot", str(png)])
+    text = capsys.readouterr().out
+    assert rc == 0
+    fixed = load_robot(out)
+    dd = C.diff_drive(fixed)
+    assert dd.b == pytest.approx(0.44 * 1.008, rel=1e-3)
+    ratio = fixed.wheel("right").radius / fixed.wheel("left").radius
+    assert ratio == pytest.approx(1.003, abs=2e-4)
+    factor = float(text.split("improvement")[1].split("x")[0])
+    assert factor >= 10
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert not list(tmp_path.glob("*.part"))
+
+
+def test_cli_measured_returns_yaml_and_csv_agree(tmp_path, capsys):
+    alpha, beta = math.radians(0.5), math.radians(1.2)
+    cw, ccw = bf_returns(alpha, beta)
+    rng = np.random.default_rng(1)
+    pcw, pccw = cw + rng.normal(0, 0.005, (5, 2)), ccw + rng.normal(0, 0.005, (5, 2))
+    y = tmp_path / "runs.yaml"
+    pcw, pccw = pcw.tolist(), pccw.tolist()
+    y.write_text("side: 4\ncw:\n" + "".join(f"  - [{a!r}, {b!r}]\n" for a, b in pcw)
+                 + "ccw:\n" + "".join(f"  - {{x: {a!r}, y: {b!r}}}\n" for a, b in pccw))
+    c = tmp_path / "runs.csv"
+    c.write_text("direction,x,y\n" + "".join(f"cw,{a!r},{b!r}\n" for a, b in pcw)
+                 + "".join(f"CCW,{a!r},{b!r}\n" for a, b in pccw))
+    outs = []
+    for src in (y, c):
+        out = tmp_path / f"fixed-{src.suffix[1:]}.yaml"
+        assert main(["calibrate", CART, "--measured", str(src), "-o", str(out)]) == 0
+        outs.append(out.read_text().split("\n", 2)[2])      # past the two comment lines
+    assert outs[0] == outs[1]
+    text = capsys.readouterr().out
+    assert "model check" in text
+    fixed = load_robot(tmp_path / "fixed-yaml.yaml")
+    Eb = 90 / (90 - math.degrees(alpha))
+    assert C.diff_drive(fixed).b == pytest.approx(0.44 * Eb, rel=2e-3)
+    assert fixed.wheel("right").radius > fixed.wheel("left").radius    # legs bent left
+
+
+# -- bad input --------------------------------------------------------------------
+def _runs_yaml(cw, ccw, side="side: 4\n"):
+    f = lambda pts: "".join(f"  - [{float(a)!r}, {float(b)!r}]\n" for a, b in pts)
+    return side + "cw:\n" + f(cw) + "ccw:\n" + f(ccw)
+
+
+CW, CCW = bf_returns(math.radians(0.6), math.radians(1.0))
+BAD_MEASURED = [
+    ("few.yaml", _runs_yaml([CW, CW], [CCW] * 5), "cw: 2 run(s); the square test needs at least 3", 2),
+    ("swapped.yaml", _runs_yaml([CCW] * 5, [CW] * 5), "inconsistent square test: alpha", 2),
+    ("yflip.yaml", _runs_yaml([CW * (1, -1)] * 5, [CCW * (1, -1)] * 5), "inconsistent square test: alpha", 2),
+    ("side.yaml", _runs_yaml([CW] * 3, [CCW] * 3, "side: -4\n"), "must be > 0", 1),
+    ("pair.yaml", "cw:\n  - [0.1]\nccw: []\n", "expected [x, y], got 1 values", 2),
+    ("word.yaml", "cw:\n  - [0.1, abc]\nccw: []\n", "expected a number (m), got 'abc'", 2),
+    ("key.yaml", "cw: []\nccw: []\nsides: 4\n", "unknown key 'sides'", 3),
+    ("dir.csv", "direction,x,y\ncw,0.1,0.2\nup,0.1,0.2\n", "direction must be cw or ccw, got 'up'", 3),
+    ("cell.csv", "direction,x,y\ncw,0.1,\n", "column 'y': expected a number (m), got ''", 2),
+    ("head.csv", "dir,x,y\n", "expected the columns direction,x,y", 1),
+    ("few.csv", "direction,x,y\n" + "cw,0,0\n" * 5 + "ccw,0,0\n", "ccw: 1 run(s)", 7),
+]
+
+
+@pytest.mark.parametrize("name,text,message,line", BAD_MEASURED)
+def test_bad_measured_returns_exit_2_without_output(tmp_path, capsys, name, text, message, line):
+    src = tmp_path / name
+    src.write_text(text)
+    out = tmp_path / "fixed.yaml"
+    assert main(["calibrate", CART, "--measured", str(src), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert f"{src}:{line}: " in err and message in err and "Traceback" not in err
+    assert not out.exists() and not list(tmp_path.glob("*.part"))
+
+
+def test_bad_calibration_arguments(tmp_path, capsys):
+    src = tmp_path / "ok.yaml"
+    src.write_text(_runs_yaml([CW] * 5, [CCW] * 5))
+    out = tmp_path / "fixed.yaml"
+    mecanum = os.path.join(SCEN, "robots", "tote-mecanum.yaml")
+    other = tmp_path / "other.yaml"
+    other.write_text("wheels:\n  - {name: a, type: fixed, x: 0, y: 0.2, radius: 0.1}\n"
+                     "  - {name: b, type: fixed, x: 0, y: -0.2, radius: 0.1}\n")
+    cases = [
+        (["--measured", str(src), "--runs", "2", "--side", "4"], "--runs: 2 run(s) per direction"),
+        (["--measured", str(src), "--side", "5"], "the file says side 4 m but --side says 5 m"),
+        (["--true", str(other)], "must match"),
+        (["--true", CART, "--step", "0"], "--step: must be a finite number > 0"),
+    ]
+    for extra, message in cases:
+        assert main(["calibrate", CART, *extra, "-o", str(out)]) == 2
+        err = capsys.readouterr().err
+        assert message in err and "Traceback" not in err, (extra, err)
+    assert main(["calibrate", mecanum, "--measured", str(src), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "needs a differential-drive base" in err and "--fit" in err
+    assert not out.exists() and not list(tmp_path.glob("*.part"))
+
+
+# -- geometry fit, other layouts -----------------------------------------------------
+def _record(robot_data, script, duration, tmp_path, name, odometry=None):
+    data = {"robot": robot_data, "step": 0.05, "duration": duration, "script": script}
+    if odometry:
+        data["odometry"] = odometry
+    path = tmp_path / name
+    run_scenario(scenario_from_data(data, "<test>", base_dir=SCEN), csv=str(path))
+    return path
+
+
+def _data(robot):
+    """An inline robot mapping for a scenario (through the robot-file writer)."""
+    return yaml.safe_load(C.robot_yaml(robot))
+
+
+def test_fit_recovers_radii_and_lever_arms_of_an_omni_base(tmp_path, capsys):
+    nominal = load_robot(os.path.join(SCEN, "robots", "camera-dolly.yaml"))
+    true = replace(nominal, wheels=(replace(nominal.wheels[0], radius=0.0506, x=0.253),
+                                    replace(nominal.wheels[1], radius=0.0497),
+                                    nominal.wheels[2]))
+    script = [{"at": 0, "twist": {"vx": 0.3}}, {"at": 2, "twist": {"vy": 0.3, "omega": 0.6}},
+              {"at": 4, "twist": {"vx": 0.2, "vy": -0.1, "omega": -0.8}}, {"at": 6, "stop": True}]
+    run = _record(_data(true), script, 7, tmp_path, "run.csv")
+    npath = tmp_path / "nominal.yaml"
+    npath.write_text(C.robot_yaml(nominal))
+    out = tmp_path / "fitted.yaml"
+    assert main(["calibrate", str(npath), "--fit", str(run), "--wheels", "nose,left,right", "-o", str(out)]) == 0
+    text = capsys.readouterr().out
+    fitted = load_robot(out)
+    for t, f in zip(true.wheels, fitted.wheels):
+        assert f.radius == pytest.approx(t.radius, rel=1e-7)
+        # the rolling row sees only the lever arm x sin h - y cos h (constraints.rolling_rows)
+        arm = lambda w: w.x * math.sin(w.heading) - w.y * math.cos(w.heading)
+        assert arm(f) == pytest.approx(arm(t), abs=1e-8)
+    assert "undetermined" in text
+    rec = G.read_record(run, nominal, ["nose", "left", "right"])
+    e0 = G.track_errors(G.replay(nominal, ["nose", "left", "right"], rec), rec.pose)["final_position_error"]
+    e1 = G.track_errors(G.replay(fitted, ["nose", "left", "right"], rec), rec.pose)["final_position_error"]
+    assert e0 > 1e-3 and e1 < e0 / 1000
+
+
+def test_fit_from_encoder_counts_of_a_differential_base(tmp_path):
+    belief = load_robot(CART)
+    true = as_built(belief, 1.004, 1.01)
+    script = [{"at": 0, "twist": {"vx": 0.4, "omega": 0.3}}, {"at": 5, "twist": {"vx": 0.3, "omega": -0.6}},
+              {"at": 10, "twist": {"omega": 1.0}}, {"at": 14, "stop": True}]
+    run = _record(_data(true), script, 15, tmp_path, "run.csv", {"wheels": ["left", "right"]})
+    rec = G.read_record(run, belief, ["left", "right"])
+    res = G.fit_geometry(belief, ["left", "right"], [rec])
+    # 2048 counts: radii to about one count over the run
+    assert res.robot.wheel("left").radius == pytest.approx(true.wheel("left").radius, rel=2e-4)
+    assert res.robot.wheel("right").radius == pytest.approx(true.wheel("right").radius, rel=2e-4)
+    assert C.diff_drive(res.robot).b == pytest.approx(0.44 * 1.01, rel=1e-3)
+    assert set(res.undetermined) == {"left.x", "right.x"}        # only their mean enters (vy + x omega = 0)
+
+
+def test_bad_fit_input(tmp_path, capsys):
+    good = _record(_data(load_robot(CART)), [{"at": 0, "twist": {"vx": 0.3, "omega": 0.4}}], 3, tmp_path, "run.csv")
+    lines = good.read_text().splitlines()
+    header = lines[0].split(",")
+    ix, iy = header.index("x"), header.index("y")
+    scrambled = [lines[0]]
+    rng = np.random.default_rng(0)
+    for ln in lines[1:]:
+        cells = ln.split(",")
+        cells[ix], cells[iy] = repr(rng.uniform(-5, 5)), repr(rng.uniform(-5, 5))
+        scrambled.append(",".join(cells))
+    cases = [
+        ("nocol.csv", "\n".join([",".join(h for h in header if h != "left.spin")] +
+                                [",".join(c for h, c in zip(header, ln.split(",")) if h != "left.spin")
+                                 for ln in lines[1:]]) + "\n", "no column 'left.counts' or 'left.spin'"),
+        ("still.csv", lines[0] + "\n" + "\n".join([lines[1]] * 0) + "\n", "at least 3 rows"),
+        ("scrambled.csv", "\n".join(scrambled) + "\n", "inconsistent recorded runs"),
+        ("time.csv", "\n".join([lines[0], lines[2], lines[1], lines[3]]) + "\n", "'t' must increase"),
+    ]
+    out = tmp_path / "fixed.yaml"
+    for name, text, message in cases:
+        p = tmp_path / name
+        p.write_text(text)
+        assert main(["calibrate", CART, "--fit", str(p), "-o", str(out)]) == 2, name
+        err = capsys.readouterr().err
+        assert message in err and "Traceback" not in err, (name, err)
+        assert err.startswith(str(p))
+    assert main(["calibrate", CART, "--fit", str(good), "--wheels", "left", "-o", str(out)]) == 2
+    assert "determine only 2 of the 3" in capsys.readouterr().err
+    assert not out.exists() and not list(tmp_path.glob("*.part"))

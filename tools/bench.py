@@ -1,0 +1,195 @@
+"""Benchmarks for Trundle's engine, trace writer, batch runner and start-up.
+
+    python tools/bench.py [--repeat 3] [--quick]
+
+Each case runs in a fresh Python process (so peak memory is its own), several
+times; the table shows the median.  Cases:
+
+1. four-module steered base, dt 1 ms, 1,000 s, twist commands changing every
+   2 s with rate-limited steering, no CSV; also the ratio against
+   tools/naive_loop.py (build the stacked matrix, pinv, forward Euler per
+   step) timed in the same process on the first steps of the same case;
+2. the same, writing a CSV row for every step;
+3. differential drive with two castors, dt 1 ms, 1,000 s, wheel commands
+   changing every 0.5 s;
+4. ``trundle batch`` over 200 generated 10 s scenarios, ``--jobs 1`` and all cores;
+5. start-up: ``trundle analyze`` on a small base, whole process;
+6. peak memory of a one-hour run at 1 kHz streaming CSV.
+
+Scenario files are generated (seeded) into a temporary folder.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import random
+import resource
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+ROBOTS = os.path.join(ROOT, "scenarios", "robots")
+NAIVE_STEPS = 20_000
+
+
+def _write_cases(folder: str, duration: float = 1000.0) -> None:
+    rng = random.Random(7)
+    lines = [f"robot: {os.path.join(ROBOTS, 'quad-steer.yaml')}", "step: 0.001",
+             f"duration: {duration:g}", "script:"]
+    for i in range(int(duration // 2)):
+        vx, vy, w = (round(rng.uniform(-a, a), 3) for a in (0.8, 0.5, 0.6))
+        lines.append(f"  - {{at: {2 * i}, twist: {{vx: {vx}, vy: {vy}, omega: {w}}}}}")
+    with open(os.path.join(folder, "steered.yaml"), "w") as fh:
+        fh.write("\n".join(lines) + "\n")
+    lines = [f"robot: {os.path.join(ROBOTS, 'ward-cart.yaml')}", "step: 0.001",
+             f"duration: {duration:g}", "script:"]
+    for i in range(int(duration * 2)):
+        left, right = (round(rng.uniform(-6, 8), 2) for _ in range(2))
+        lines.append(f"  - {{at: {i * 0.5:g}, wheels: {{left: {left}, right: {right}}}}}")
+    with open(os.path.join(folder, "castors.yaml"), "w") as fh:
+        fh.write("\n".join(lines) + "\n")
+    hour = [f"robot: {os.path.join(ROBOTS, 'ward-cart.yaml')}", "step: 0.001", "duration: 3600",
+            "script:"] + [f"  - {{at: {i * 5}, wheels: {{left: {3 + i % 3}, right: {4 - i % 2}}}}}"
+                          for i in range(720)]
+    with open(os.path.join(folder, "hour.yaml"), "w") as fh:
+        fh.write("\n".join(hour) + "\n")
+    batch = os.path.join(folder, "batch")
+    os.makedirs(batch, exist_ok=True)
+    names = ["ward-cart", "tote-mecanum", "quad-steer", "greenhouse-rover", "camera-dolly"]
+    for i in range(200):
+        robot = names[i % len(names)]
+        vx, w = round(rng.uniform(0.1, 0.5), 3), round(rng.uniform(-0.4, 0.4), 3)
+        text = (f"robot: {os.path.join(ROBOTS, robot + '.yaml')}\nstep: 0.001\nduration: 10\n"
+                f"script:\n  - {{at: 0, twist: {{vx: {vx}, omega: {w}}}}}\n  - {{at: 6, stop: true}}\n"
+                f"checks:\n  - slip_below: 1.0\n")
+        with open(os.path.join(batch, f"run-{i:03d}.yaml"), "w") as fh:
+            fh.write(text)
+
+
+def _peak_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def _one(case: str, folder: str) -> dict:
+    """Run one case in this process; return measurements."""
+    sys.path.insert(0, ROOT)
+    from sim import load_scenario, run_scenario
+    if case in ("1", "2"):
+        scen = load_scenario(os.path.join(folder, "steered.yaml"))
+        csv = os.path.join(folder, "trace.csv") if case == "2" else None
+        t = time.perf_counter()
+        res = run_scenario(scen, csv=csv)
+        wall = time.perf_counter() - t
+        out = {"steps": res.rows, "wall": wall, "peak_mb": _peak_mb()}
+        if case == "1":
+            sys.path.insert(0, os.path.join(ROOT, "tools"))
+            import naive_loop
+            from sim.runner import entry_steps
+            ks = entry_steps(scen.script, scen.step)
+            script = [(k, c.value) for k, c in zip(ks, scen.script) if c.kind == "twist"]
+            t = time.perf_counter()
+            naive_loop.run(scen.robot, scen.step, script, NAIVE_STEPS)
+            out["naive_steps_per_s"] = NAIVE_STEPS / (time.perf_counter() - t)
+        if csv:
+            out["csv_mb"] = os.path.getsize(csv) / 1e6
+            os.remove(csv)
+        return out
+    if case == "3":
+        scen = load_scenario(os.path.join(folder, "castors.yaml"))
+        t = time.perf_counter()
+        res = run_scenario(scen)
+        return {"steps": res.rows, "wall": time.perf_counter() - t, "peak_mb": _peak_mb()}
+    if case == "6":
+        scen = load_scenario(os.path.join(folder, "hour.yaml"))
+        csv = os.path.join(folder, "hour.csv")
+        t = time.perf_counter()
+        res = run_scenario(scen, csv=csv)
+        out = {"steps": res.rows, "wall": time.perf_counter() - t, "peak_mb": _peak_mb(),
+               "csv_mb": os.path.getsize(csv) / 1e6}
+        os.remove(csv)
+        return out
+    raise SystemExit(f"unknown case {case}")
+
+
+def _sub(case, folder) -> dict:
+    r = subprocess.run([sys.executable, __file__, "--one", case, "--folder", folder],
+                       capture_output=True, text=True, check=True)
+    return json.loads(r.stdout.strip().splitlines()[-1])
+
+
+def _timed(cmd) -> float:
+    t = time.perf_counter()
+    subprocess.run(cmd, capture_output=True, check=False, cwd=ROOT)
+    return time.perf_counter() - t
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--one", help=argparse.SUPPRESS)
+    ap.add_argument("--folder", help=argparse.SUPPRESS)
+    ap.add_argument("--skip", default="", help="comma-separated case numbers to skip")
+    args = ap.parse_args(argv)
+    if args.one:
+        print(json.dumps(_one(args.one, args.folder)))
+        return 0
+    skip = set(filter(None, args.skip.split(",")))
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="trundle-bench-") as folder:
+        _write_cases(folder)
+        med = lambda xs: statistics.median(xs)
+        for case, label in (("1", "steered base, 1e6 steps, no CSV"),
+                            ("2", "steered base, 1e6 steps, CSV every step"),
+                            ("3", "diff drive + castors, 1e6 steps")):
+            if case in skip:
+                continue
+            runs = [_sub(case, folder) for _ in range(args.repeat)]
+            wall = med([r["wall"] for r in runs])
+            steps = runs[0]["steps"]
+            row = {"case": case, "label": label, "steps": steps, "wall_s": wall,
+                   "steps_per_s": steps / wall, "peak_mb": max(r["peak_mb"] for r in runs)}
+            if case == "1":
+                naive = med([r["naive_steps_per_s"] for r in runs])
+                row["naive_steps_per_s"] = naive
+                row["ratio"] = row["steps_per_s"] / naive
+            rows.append(row)
+        if "4" not in skip:
+            cmd = [sys.executable, "-m", "sim", "batch", os.path.join(folder, "batch")]
+            one = med([_timed(cmd + ["--jobs", "1"]) for _ in range(args.repeat)])
+            allc = med([_timed(cmd + ["--jobs", str(os.cpu_count() or 1)]) for _ in range(args.repeat)])
+            rows.append({"case": "4", "label": f"batch of 200 x 10 s, --jobs 1 vs {os.cpu_count()}",
+                         "steps": 200 * 10001, "wall_s": allc, "steps_per_s": 200 * 10001 / allc,
+                         "jobs1_s": one, "ratio": one / allc, "peak_mb": float("nan")})
+        if "5" not in skip:
+            cmd = [sys.executable, "-m", "sim", "analyze", os.path.join(ROBOTS, "ward-cart.yaml")]
+            wall = med([_timed(cmd) for _ in range(max(5, args.repeat))])
+            rows.append({"case": "5", "label": "start-up: trundle analyze (whole process)",
+                         "steps": 0, "wall_s": wall, "steps_per_s": float("nan"), "peak_mb": float("nan")})
+        if "6" not in skip:
+            r = _sub("6", folder)
+            rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],
+                         "wall_s": r["wall"], "steps_per_s": r["steps"] / r["wall"], "peak_mb": r["peak_mb"]})
+    print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}, "
+          f"{platform.system()} {platform.release()}")
+    print(f"{'case':<5}{'what':<46}{'steps':>10}{'wall s':>9}{'steps/s':>12}{'ratio':>8}{'peak MB':>9}")
+    for r in rows:
+        ratio = f"{r['ratio']:.1f}x" if "ratio" in r else ""
+        sps = f"{r['steps_per_s']:,.0f}" if r["steps_per_s"] == r["steps_per_s"] else ""
+        pk = f"{r['peak_mb']:.0f}" if r["peak_mb"] == r["peak_mb"] else ""
+        print(f"{r['case']:<5}{r['label']:<46}{r['steps']:>10}{r['wall_s']:>9.3f}{sps:>12}{ratio:>8}{pk:>9}")
+    for r in rows:
+        if r["case"] == "1":
+            print(f"case 1 naive loop (pinv + Euler per step): {r['naive_steps_per_s']:,.0f} steps/s "
+                  f"over its first {NAIVE_STEPS} steps")
+        if r["case"] == "4":
+            print(f"case 4 --jobs 1: {r['jobs1_s']:.2f} s; all cores: {r['wall_s']:.2f} s")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
