@@ -66,8 +66,9 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
     """Write the baseline of ``scen`` at ``baseline`` (and its sidecar).
 
     Returns ``(run_result, change, report)``: change is ``new``, ``changed``
-    or ``unchanged`` (byte for byte, CSV and sidecar); ``report`` compares
-    the old baseline with the new trace when there was one (else None).
+    (the trace differs), ``metadata`` (same trace bytes, the sidecar differs:
+    say a new robot hash) or ``unchanged``; ``report`` compares the old
+    baseline with the new trace when the trace changed (else None).
     Files are replaced atomically; an unchanged baseline is not touched.
     """
     baseline = os.fspath(baseline)
@@ -78,19 +79,20 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
         new = os.path.join(tmp, "new.csv")
         res = run_scenario(scen, csv=new, every=baseline_every(scen))
         old_exists = os.path.isfile(baseline)
-        same = (old_exists and os.path.isfile(meta_path(baseline))
-                and filecmp.cmp(new, baseline, shallow=False)
+        same_csv = old_exists and filecmp.cmp(new, baseline, shallow=False)
+        same = (same_csv and os.path.isfile(meta_path(baseline))
                 and filecmp.cmp(meta_path(new), meta_path(baseline), shallow=False))
         report = None
-        if old_exists and not same:
+        if old_exists and not same_csv:
             try:
                 report = compare(baseline, new, tol, rules)
             except InputError:
                 report = None                      # the old file was broken: just replace it
-        if not same:
+        if not same_csv:
             os.replace(new, baseline)
+        if not same:
             os.replace(meta_path(new), meta_path(baseline))
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
-    change = "unchanged" if same else ("changed" if old_exists else "new")
+    change = ("unchanged" if same else "metadata" if same_csv else "changed" if old_exists else "new")
     return res, change, report

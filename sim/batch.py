@@ -115,7 +115,7 @@ def run_one(path, baselines_dir, update, rel=None, tol=DEFAULT_TOLERANCE, rules=
     Keys: ``scenario`` (path), ``result`` (one of :data:`RESULTS`), ``wall``
     (s), ``peak_slip`` (m/s or None), ``first_divergence`` (short text),
     ``baseline`` (path or None), ``change`` (``new`` | ``changed`` |
-    ``unchanged`` | None), ``details`` (list of lines explaining a non-pass).
+    ``metadata`` | ``unchanged`` | None), ``details`` (list of lines explaining a non-pass).
     """
     t0 = time.perf_counter()
     out = {"scenario": os.fspath(path), "result": "crashed", "wall": 0.0, "peak_slip": None,
@@ -147,8 +147,8 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
         if update:
             res, change, old = record(scen, bpath, tol, rules)
             out["change"] = change
-            if old is not None and old.diverged:
-                out["first_divergence"] = old.summary()
+            if old is not None:
+                out["first_divergence"] = "diverged " + old.summary() if old.diverged else old.status
         else:
             res, rep, notes = run_against(scen, bpath, tol, rules)
     if res.interrupted:
@@ -252,18 +252,19 @@ def table(results, update=False) -> str:
         slip = "-" if r["peak_slip"] is None else f"{r['peak_slip']:.3g}"
         tail = r["first_divergence"]
         if update and r["change"]:
-            tail = r["change"] + (f" (was different from {tail})" if tail else "")
+            tail = {"metadata": "metadata only"}.get(r["change"], r["change"]) + (f", {tail}" if tail else "")
         lines.append(f"{r['scenario']:<{w}}  {r['result']:<12}  {r['wall']:>7.2f}  {slip:>13}  {tail}".rstrip())
     counts = [f"{sum(r['result'] == k for r in results)} {k}" for k in RESULTS
               if any(r["result"] == k for r in results)]
     lines.append(f"{len(results)} scenario{'s' if len(results) != 1 else ''}: {', '.join(counts)}")
     if update:
-        ch = {k: [r for r in results if r["change"] == k] for k in ("new", "changed", "unchanged")}
-        parts = [f"{len(v)} {k}" for k, v in ch.items() if v]
+        kinds = {"new": "new", "changed": "changed", "metadata": "metadata only", "unchanged": "unchanged"}
+        ch = {k: [r for r in results if r["change"] == k] for k in kinds}
+        parts = [f"{len(v)} {kinds[k]}" for k, v in ch.items() if v]
         if parts:
             lines.append("baselines: " + ", ".join(parts))
-        for r in ch["new"] + ch["changed"]:
-            lines.append(f"  {r['change']:<8} {r['baseline']}")
+        for r in ch["new"] + ch["changed"] + ch["metadata"]:
+            lines.append(f"  {kinds[r['change']]:<13} {r['baseline']}")
     return "\n".join(lines)
 
 

@@ -294,7 +294,8 @@ class ChunkedSimulator(Simulator):
         H = self._steer_path(m)
         targets = np.broadcast_to(base_target, (m, int(d.sum()))).copy()
         if twist_mode and np.any(st):
-            err = self.steer_cmd[st][None, :] - H[:, st]
+            # error toward the reachable goal, as sim/engine.py step 3 (clamped to steer_limits)
+            err = np.clip(self.steer_cmd[st], a.steer_lo[st], a.steer_hi[st])[None, :] - H[:, st]
             if self.align == "wait":
                 waiting = np.any(np.abs(err) > self.align_tolerance, axis=1)
                 targets[waiting] = 0.0

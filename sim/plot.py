@@ -63,7 +63,7 @@ def read_trace(path, max_rows: int = 20000) -> Trace:
     except OSError as exc:
         raise InputError(src, None, f"cannot read file: {exc.strerror}") from None
     with fh:
-        reader = csv.reader(fh)
+        reader = csv.reader(fh, strict=True)
         try:
             header = next(reader)
         except StopIteration:
@@ -100,7 +100,7 @@ def read_trace(path, max_rows: int = 20000) -> Trace:
                         v = float(cell)
                     except ValueError:
                         raise InputError(src, ln, f"column '{c}': expected a number or a blank cell, "
-                                         f"got '{cell[:40]}'") from None
+                                         f"got {cell[:40]!r}") from None
                     if math.isinf(v):
                         raise InputError(src, ln, f"column '{c}': expected a finite number, got '{cell}'")
                     vals.append(v)

@@ -26,21 +26,20 @@ number of cells, a cell that is not a number) raises
 """
 from __future__ import annotations
 
-import csv
 import fnmatch
 import math
 import os
 import re
 from dataclasses import dataclass, field
 from itertools import compress
+from operator import itemgetter
 
 import numpy as np
 
 from .errors import InputError
+from .tracecsv import CHUNK_BYTES, TraceFile, floats
 
 DEFAULT_TOLERANCE = 1e-9
-CHUNK_BYTES = 1 << 20
-_FAST_CHARS = b"0123456789.eE+-,\n"      # a chunk of only these needs no slow checks
 _TOL = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(deg|rad)?\s*$")
 POSE = ("x", "y", "theta")
 
@@ -279,195 +278,11 @@ def _dev(d, heading) -> str:
     return f"{d:.3e}" + (" rad" if heading else "")
 
 
-# -- reading -------------------------------------------------------------------
-class _Trace:
-    """One CSV trace read in chunks of whole lines (bytes, without line ends)."""
-
-    def __init__(self, path, chunk_bytes, start=None, end=None, line=2):
-        self.path = os.fspath(path)
-        self.chunk = max(int(chunk_bytes), 64)
-        try:
-            self.fh = open(self.path, "rb")
-        except FileNotFoundError:
-            raise InputError(self.path, None, "file not found") from None
-        except IsADirectoryError:
-            raise InputError(self.path, None, "is a folder, expected a CSV trace") from None
-        except OSError as exc:
-            raise InputError(self.path, None, f"cannot read file: {exc.strerror}") from None
-        self.rows = 0
-        self.line = 2                  # file line of the next data row
-        self.head = []                 # first two data lines
-        self.last = None               # last data line
-        self._rest = b""
-        self._eof = False
-        try:
-            self.columns = self._header()
-        except BaseException:
-            self.fh.close()
-            raise
-        self.nc = len(self.columns)
-        self.end = end                 # stop reading at this byte offset (None: end of file)
-        if start is not None:          # a segment: data rows from byte ``start``, file line ``line``
-            self.fh.seek(start)
-            self._rest = b""
-            self.line = line
-        self.pos = self.fh.tell()
-
-    def close(self):
-        self.fh.close()
-
-    def _header(self):
-        data = b""
-        while b"\n" not in data:
-            more = self.fh.read(self.chunk)
-            if not more:
-                break
-            data += more
-        line, _, self._rest = data.partition(b"\n")
-        line = line.rstrip(b"\r")
-        if not line.strip():
-            raise InputError(self.path, 1, "empty file; expected a header line t,x,y,theta,...")
-        try:
-            text = line.decode("utf-8-sig")
-        except UnicodeDecodeError:
-            raise InputError(self.path, 1, "the header is not UTF-8 text") from None
-        try:
-            names = [n.strip() for n in next(csv.reader([text]))]
-        except csv.Error as exc:
-            raise InputError(self.path, 1, f"malformed CSV header: {exc}") from None
-        if any(not n for n in names):
-            raise InputError(self.path, 1, "the header has a blank column name")
-        seen = set()
-        for n in names:
-            if n in seen:
-                raise InputError(self.path, 1, f"column '{n}' appears twice in the header")
-            seen.add(n)
-        if "t" not in seen:
-            raise InputError(self.path, 1, "no column 't'; expected a trace header such as t,x,y,theta,...")
-        return tuple(names)
-
-    def blocks(self):
-        """Yield lists of data lines (bytes), validated, about ``chunk`` bytes each."""
-        rest = self._rest
-        while True:
-            size = self.chunk if self.end is None else min(self.chunk, self.end - self.pos)
-            data = self.fh.read(size) if size > 0 else b""
-            self.pos += len(data)
-            if not data:
-                self._eof = True
-                if rest:
-                    if not rest.endswith(b"\n"):
-                        rest += b"\n"                  # last row without a line end (RFC 4180 allows it)
-                    yield self._block(rest, final=True)
-                return
-            data = rest + data
-            cut = data.rfind(b"\n")
-            if cut < 0:
-                rest = data
-                continue
-            rest = data[cut + 1:]
-            yield self._block(data[:cut + 1], final=False)
-
-    def _block(self, data, final):
-        """(first file line, lines, widest cell in bytes) of a chunk of whole lines."""
-        if b"\r" in data:
-            data = data.replace(b"\r\n", b"\n")
-        ok = not data.translate(None, _FAST_CHARS)
-        width = 0
-        if ok:
-            buf = np.frombuffer(data, np.uint8)
-            sep = np.flatnonzero((buf == 44) | (buf == 10))
-            ends = np.flatnonzero(buf[sep] == 10)
-            ok = bool(np.all(np.diff(ends, prepend=-1) == self.nc))
-            if ok and sep.size:
-                width = int(np.max(np.diff(sep, prepend=-1))) - 1
-        lines = data.split(b"\n")
-        lines.pop()
-        if not ok:
-            lines = self._careful(lines, final)
-            width = max((len(c) for ln in lines for c in ln.split(b",")), default=0)
-        first = self.line
-        self.line += len(lines)
-        self.rows += len(lines)
-        if len(self.head) < 2:
-            self.head += lines[: 2 - len(self.head)]
-        if lines:
-            self.last = lines[-1]
-        return first, lines, width
-
-    def _careful(self, lines, final):
-        """Check every cell of ``lines``; return them normalised (unquoted, stripped)."""
-        out = []
-        for i, raw in enumerate(lines):
-            ln = self.line + i
-            try:
-                text = raw.decode("ascii")
-            except UnicodeDecodeError:
-                raise InputError(self.path, ln, "not plain text: a trace holds numbers and blank cells") from None
-            if '"' in text:
-                try:
-                    cells = next(csv.reader([text]))
-                except csv.Error as exc:
-                    raise InputError(self.path, ln, f"malformed CSV: {exc}") from None
-            else:
-                cells = text.split(",")
-            if not text.strip():
-                raise InputError(self.path, ln, f"blank line; expected {self.nc} cells")
-            if len(cells) != self.nc:
-                last = final or (i == len(lines) - 1 and self._at_end())
-                hint = " (the file ends inside this row: truncated?)" if last and len(cells) < self.nc else ""
-                raise InputError(self.path, ln, f"expected {self.nc} cells, got {len(cells)}{hint}")
-            norm = []
-            for name, c in zip(self.columns, cells):
-                c = c.strip()
-                if c:
-                    try:
-                        float(c)
-                    except ValueError:
-                        raise InputError(self.path, ln, f"column '{name}': expected a number or a blank cell, "
-                                                        f"got '{c}'") from None
-                norm.append(c)
-            out.append(",".join(norm).encode("ascii"))
-        return out
-
-    def _at_end(self) -> bool:
-        pos = self.fh.tell()
-        more = self.fh.read(1)
-        self.fh.seek(pos)
-        return not more
-
-
-def _floats(cells, where):
-    """Cells (bytes, blank = nan) -> float array; ``where(i)`` -> (source, line, column) on error."""
-    if not cells:
-        return np.empty(0)
-    s = b",".join(cells)
-    if b",," in s or s[:1] == b"," or s[-1:] == b",":
-        s = (b"," + s + b",").replace(b",,", b",nan,").replace(b",,", b",nan,")[1:-1]
-    elif not s:
-        s = b"nan"
-    try:
-        v = np.fromstring(s, sep=",")
-        if v.size == len(cells):
-            return v
-    except (ValueError, DeprecationWarning):
-        pass
-    out = np.empty(len(cells))
-    for i, c in enumerate(cells):
-        try:
-            out[i] = float(c) if c else np.nan
-        except ValueError:
-            src, ln, name = where(i)
-            raise InputError(src, ln, f"column '{name}': expected a number or a blank cell, "
-                                      f"got '{c.decode('ascii', 'replace')}'") from None
-    return out
-
-
 # -- comparing -----------------------------------------------------------------
 class _Compare:
     """Accumulates deviations over aligned runs of rows."""
 
-    def __init__(self, ta: _Trace, tb: _Trace, names, tols, tol_t):
+    def __init__(self, ta: TraceFile, tb: TraceFile, names, tols, tol_t):
         self.ta, self.tb = ta, tb
         self.names = names
         self.ia = [ta.columns.index(n) for n in names]
@@ -504,26 +319,31 @@ class _Compare:
             return
         k = len(idx)
         nca, ncb = self.ta.nc, self.tb.nc
-        ca = b",".join([la[i] for i in idx]).split(b",")
-        cb = b",".join([lb[i] for i in idx]).split(b",")
+        ca = b",".join(_pick(la, idx)).split(b",")
+        cb = b",".join(_pick(lb, idx)).split(b",")
         if self.same_layout:
             dt = f"S{max(width, 1)}"
             ne = (np.array(ca, dtype=dt) != np.array(cb, dtype=dt)).reshape(k, nca)
+            t_ne = np.flatnonzero(ne[:, self.ita])
             ne &= self.colmask
             fa = np.flatnonzero(ne)
             r, cf = np.divmod(fa, nca)
             c = self.colpos[cf]
             fb = fa
         else:
-            A = np.array(ca, dtype=object).reshape(k, nca)[:, self.ia]
-            B = np.array(cb, dtype=object).reshape(k, ncb)[:, self.ib]
-            r, c = np.nonzero(A != B)
+            A = np.array(ca, dtype=object).reshape(k, nca)
+            B = np.array(cb, dtype=object).reshape(k, ncb)
+            t_ne = np.flatnonzero(A[:, self.ita] != B[:, self.itb])
+            r, c = np.nonzero(A[:, self.ia] != B[:, self.ib])
             fa = r * nca + np.asarray(self.ia, int)[c]
             fb = r * ncb + np.asarray(self.ib, int)[c]
-        tA = _floats(ca[self.ita::nca], lambda i: (self.ta.path, line_a + idx[i], "t"))
-        tB = _floats(cb[self.itb::ncb], lambda i: (self.tb.path, line_b + idx[i], "t"))
-        va = _floats([ca[i] for i in fa.tolist()], lambda i: (self.ta.path, line_a + idx[r[i]], self.names[c[i]]))
-        vb = _floats([cb[i] for i in fb.tolist()], lambda i: (self.tb.path, line_b + idx[r[i]], self.names[c[i]]))
+        va = floats(_pick(ca, fa.tolist()), lambda i: (self.ta.path, line_a + idx[r[i]], self.names[c[i]]))
+        vb = floats(_pick(cb, fb.tolist()), lambda i: (self.tb.path, line_b + idx[r[i]], self.names[c[i]]))
+
+        def t_at(cells, nc, it, j):                # time of differing row j (s)
+            cell = cells[j * nc + it]
+            return float(cell) if cell else math.nan
+
         d, eq, blank = _deviation(va, vb, self.heading[c])
         self.equal &= bool(eq.all())
         ncomp = len(self.names)
@@ -535,12 +355,15 @@ class _Compare:
         VB = np.full((k, ncomp), np.nan)
         VA[r, c] = va
         VB[r, c] = vb
-        if self.step is None:
-            dt, _, _ = _deviation(tA, tB, np.zeros(k, bool))
+        if self.step is None and t_ne.size:
+            where = lambda i: (self.ta.path, line_a + idx[t_ne[i]], "t")
+            tA = floats([ca[j * nca + self.ita] for j in t_ne], where)
+            tB = floats([cb[j * ncb + self.itb] for j in t_ne], where)
+            dt, _, _ = _deviation(tA, tB, np.zeros(t_ne.size, bool))
             bad = np.flatnonzero(dt > self.tol_t)
             if bad.size:
                 j = bad[0]
-                self.step = (row0 + idx[j], float(tA[j]), float(tB[j]))
+                self.step = (row0 + idx[t_ne[j]], float(tA[j]), float(tB[j]))
         if self.first is None:
             exceed = D > self.tol
             hit = np.flatnonzero(exceed.any(axis=1))
@@ -548,17 +371,25 @@ class _Compare:
                 j = hit[0]
                 cols = [(self.names[m], float(VA[j, m]), float(VB[j, m]), float(D[j, m]), float(self.tol[m]))
                         for m in np.flatnonzero(exceed[j])]
-                self.first = Divergence(row0 + idx[j], float(tA[j]), float(tB[j]), cols)
+                self.first = Divergence(row0 + idx[j], t_at(ca, nca, self.ita, j), t_at(cb, ncb, self.itb, j), cols)
         top = D.argmax(axis=0)
         val = D[top, np.arange(ncomp)]
-        better = np.flatnonzero(val > self.max_dev)
-        if better.size:
-            j = top[better]
-            self.max_dev[better] = val[better]
-            self.max_row[better] = row0 + np.asarray(idx)[j]
-            self.max_t[better] = tA[j]
-            self.max_a[better] = VA[j, better]
-            self.max_b[better] = VB[j, better]
+        for m in np.flatnonzero(val > self.max_dev):
+            j = int(top[m])
+            self.max_dev[m] = val[m]
+            self.max_row[m] = row0 + idx[j]
+            self.max_t[m] = t_at(ca, nca, self.ita, j)
+            self.max_a[m] = VA[j, m]
+            self.max_b[m] = VB[j, m]
+
+
+def _pick(seq, idx):
+    """``[seq[i] for i in idx]`` at C speed (a tuple or the list itself)."""
+    if len(idx) == len(seq):
+        return seq
+    if len(idx) == 1:
+        return (seq[idx[0]],)
+    return itemgetter(*idx)(seq) if idx else ()
 
 
 def _deviation(va, vb, heading):
@@ -599,9 +430,9 @@ def compare(path_a, path_b, tol: float = DEFAULT_TOLERANCE, rules=(), columns=No
         each compares its own range of rows.  The report is the same for any
         number of jobs.
     """
-    ta = _Trace(path_a, chunk_bytes)
+    ta = TraceFile(path_a, chunk_bytes)
     try:
-        tb = _Trace(path_b, chunk_bytes)
+        tb = TraceFile(path_b, chunk_bytes)
     except BaseException:
         ta.close()
         raise
@@ -670,9 +501,9 @@ def _segment(plan: _Plan, chunk_bytes, cut) -> dict:
         row, sa, ea, sb, eb = 0, None, None, None, None
     else:
         row, sa, ea, sb, eb = cut
-    ta = _Trace(plan.path_a, chunk_bytes, sa, ea, row + 2)
+    ta = TraceFile(plan.path_a, chunk_bytes, sa, ea, row + 2)
     try:
-        tb = _Trace(plan.path_b, chunk_bytes, sb, eb, row + 2)
+        tb = TraceFile(plan.path_b, chunk_bytes, sb, eb, row + 2)
     except BaseException:
         ta.close()
         raise

@@ -12,11 +12,9 @@ import yaml
 from sim import calibrate as C
 from sim import geomfit as G
 from sim.cli import main
-from sim.errors import InputError
-from sim.robot import load_robot, robot_from_data
+from sim.robot import load_robot
 from sim.runner import run_scenario
 from sim.scenario import scenario_from_data
-from sim.yamlread import load_file
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 SCEN = os.path.join(HERE, "..", "scenarios")

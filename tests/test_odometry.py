@@ -5,6 +5,7 @@ import copy
 import math
 import os
 import types
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -191,7 +192,6 @@ def test_count_noise_grows_like_a_random_walk():
     # std = r * (2 pi / N) * sigma * sqrt(q) / sqrt(2) (mean of two independent wheels).
     N, r, sigma = 4096, 0.08, 20.0
     robot = load_robot(os.path.join(ROBOTS, "ward-cart.yaml"))
-    from dataclasses import replace
     robot = replace(robot, wheels=tuple(replace(w, encoder=N) if w.type == "fixed" else w for w in robot.wheels))
     spec = OdometrySpec(("left", "right"), count_noise=sigma, seed=5)
     rng = np.random.default_rng(5)
@@ -213,7 +213,6 @@ def test_count_noise_grows_like_a_random_walk():
 
 def test_block_update_matches_row_by_row():
     robot = load_robot(os.path.join(ROBOTS, "quad-steer.yaml"))
-    from dataclasses import replace
     robot = replace(robot, wheels=tuple(replace(w, encoder=1024, steer_resolution=math.radians(0.5))
                                         for w in robot.wheels))
     spec = OdometrySpec(tuple(w.name for w in robot.wheels), count_noise=2.0, slip_noise=0.5, seed=3)

@@ -215,16 +215,16 @@ def xvfb():
     os.close(w)
     ready, _, _ = select.select([r], [], [], 20)
     num = os.read(r, 64).decode().strip() if ready else ""
-    os.close(r)
-    if not num:
+    if not num:                       # (the pipe stays open while Xvfb runs: it may write again)
         proc.kill()
         pytest.fail("Xvfb did not start")
     env = dict(os.environ, DISPLAY=f":{num}", SDL_VIDEODRIVER="x11", PYTHONPATH=str(ROOT))
     _wait_for(lambda: subprocess.run(["xdotool", "getmouselocation"], env=env, capture_output=True,
-                                     timeout=10).returncode == 0, "the X server to accept clients")
+                                     timeout=10).returncode == 0, "the X server to accept clients", 10)
     yield env
     proc.send_signal(signal.SIGTERM)
     proc.wait(timeout=10)
+    os.close(r)
 
 
 def _window_of(proc, env):
@@ -240,6 +240,19 @@ def _window_of(proc, env):
 
 def _keys(env, *names):
     subprocess.run(["xdotool", "key", "--delay", "40", *names], env=env, timeout=10, check=True)
+
+
+def _escape(proc, env):
+    """Press Escape (once more if an X event went astray) and collect the output."""
+    for _ in range(2):
+        _keys(env, "Escape")
+        try:
+            return proc.communicate(timeout=15)
+        except subprocess.TimeoutExpired:
+            pass
+    proc.kill()
+    out, err = proc.communicate()
+    pytest.fail(f"the program did not quit on Escape: {err}")
 
 
 def _wait_for(pred, what, timeout=30):
@@ -268,8 +281,7 @@ def test_drive_in_a_real_window(xvfb, tmp_path):
             return len(lines) > 50 and len(cells) > 10 and cells[10] and float(cells[10]) == 0.15
         _wait_for(moving, "the recorded command to reach 0.15 m/s")
         _wait_for(lambda: len(part.read_text().splitlines()) > 250, "2 s more of driving")
-        _keys(xvfb, "Escape")
-        out, err = proc.communicate(timeout=30)
+        out, err = _escape(proc, xvfb)
     finally:
         if proc.poll() is None:
             proc.kill()
@@ -295,8 +307,7 @@ def test_run_window_matches_the_headless_picture(xvfb, tmp_path, cli):
                                   text=True, timeout=10).stdout
         _wait_for(lambda: "finished" in title(), "the run to finish")
         assert "x8" in title()
-        _keys(xvfb, "Escape")
-        out, err = proc.communicate(timeout=30)
+        out, err = _escape(proc, xvfb)
     finally:
         if proc.poll() is None:
             proc.kill()
