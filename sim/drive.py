@@ -16,6 +16,10 @@ from .engine import Simulator
 from .teleop import TeleopConfig, TeleopState, body_twist, press, sticks
 
 MAX_CATCH_UP = 0.25   # s of run time advanced at most per frame (a slow frame does not jump)
+HELP = (("up w  down s", "forward speed +/- 0.05 m/s"), ("left a  right d", "turn rate +/- 0.1 rad/s"),
+        ("q  e", "sideways speed +/- 0.05 m/s"), ("space", "stop"), ("b", "body / world frame"),
+        ("p", "steering policy"), ("f", "follow the base"), ("h", "this help"), ("esc", "quit"),
+        ("wheel", "zoom; drag: pan"))
 
 
 def _fmt(v, nd=3):
@@ -55,7 +59,7 @@ class DriveSession:
         self.renderer.fit((0.0, 0.0, 0.0, 0.0))
         self.renderer.view.zoom(0.5)
         try:
-            self.window = render.Window(size, f"trundle drive  {robot.name}", hidden=hidden,
+            self.window = render.Window(size, f"trundle drive  {robot.name}  (h: keys)", hidden=hidden,
                                         joystick=joystick, key_repeat=(350, 70))
         except BaseException:
             if self.recorder:
@@ -63,6 +67,7 @@ class DriveSession:
             raise
         self.row = None
         self.closed = False
+        self.help = False
 
     # -- one frame ------------------------------------------------------------
     def handle_events(self) -> None:
@@ -75,8 +80,8 @@ class DriveSession:
                 k = ev[1]
                 if k == "f":
                     self.renderer.follow = not self.renderer.follow
-                elif k == "c":
-                    self.renderer.follow = True
+                elif k == "h":
+                    self.help = not self.help
                 else:
                     self.state = press(self.state, k, self.cfg)
             elif kind == "zoom":
@@ -113,11 +118,7 @@ class DriveSession:
                  ("", f"omega {_fmt(st.omega)} rad/s   ({st.source})")]
         if self.recorder:
             lines.append(("record", os.path.basename(self.recorder.path)))
-        lines += [("keys", "arrows/WASD speed, turn"),
-                  ("", "Q/E sideways, space stop"),
-                  ("", "B frame, P policy, F follow"),
-                  ("", "Esc quit")]
-        self.window.show(self.renderer.draw(self.row, lines))
+        self.window.show(self.renderer.draw(self.row, lines), HELP if self.help else None)
 
     def frame(self, nsteps: int) -> bool:
         """Events, ``nsteps`` steps, picture; False once the user has quit."""

@@ -22,9 +22,9 @@ import time
 from .errors import InputError
 from .runner import run_scenario
 
-HELP = ("space  pause / resume", "n      single step", "+ ]    faster", "- [    slower",
-        "r      restart", "f      follow the base", "c      fit the view", "h      this help",
-        "esc q  quit", "wheel  zoom, drag: pan")
+HELP = (("space", "pause / resume"), ("n", "single step"), ("+  ]", "faster"), ("-  [", "slower"),
+        ("r", "restart"), ("f", "follow the base"), ("c", "fit the view"), ("h", "this help"),
+        ("esc  q", "quit"), ("wheel", "zoom; drag: pan"))
 FRAME_NAME = "frame-{:06d}.png"
 
 

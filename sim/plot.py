@@ -13,7 +13,6 @@ time with its peak marked.  A second trace is overlaid in dotted lines.
 """
 from __future__ import annotations
 
-import csv
 import math
 import os
 from dataclasses import dataclass, field
@@ -56,84 +55,67 @@ class Trace:
 
 
 def read_trace(path, max_rows: int = 20000) -> Trace:
-    """Read a trace CSV (see README "Traces").  Raises :class:`InputError`."""
+    """Read a trace CSV (see README "Traces").  Raises :class:`InputError`.
+
+    Lines are read and checked by :class:`sim.tracecsv.TraceFile` (the reader
+    ``trundle diff`` uses), a block at a time.
+    """
+    from .tracecsv import CHUNK_BYTES, TraceFile, floats
+
     src = os.fspath(path)
+    tf = TraceFile(src, CHUNK_BYTES)
     try:
-        fh = open(src, newline="", encoding="utf-8")
-    except OSError as exc:
-        raise InputError(src, None, f"cannot read file: {exc.strerror}") from None
-    with fh:
-        reader = csv.reader(fh, strict=True)
-        try:
-            header = next(reader)
-        except StopIteration:
-            raise InputError(src, 1, "empty file; expected a trace header starting with t,x,y,theta") from None
-        except (csv.Error, UnicodeDecodeError) as exc:
-            raise InputError(src, 1, f"not a readable CSV: {exc}") from None
-        header = [h.strip() for h in header]
+        header = list(tf.columns)
         missing = [c for c in REQUIRED if c not in header]
         if missing:
             raise InputError(src, 1, f"not a trace: missing column(s) {', '.join(missing)}")
-        if len(set(header)) != len(header):
-            dup = sorted({c for c in header if header.count(c) > 1})
-            raise InputError(src, 1, f"repeated column(s) {', '.join(dup)}")
-        ncol = len(header)
-        kept, stride, last = [], 1, None
+        nc = len(header)
         ti = header.index("t")
         si = header.index("slip") if "slip" in header else None
+        kept, stride, last = [], 1, None
         peak, peak_t = -math.inf, math.nan
         i = 0
-        try:
-            for row in reader:
-                ln = reader.line_num
-                if not row or all(not c.strip() for c in row):
-                    continue
-                if len(row) != ncol:
-                    raise InputError(src, ln, f"expected {ncol} cells, got {len(row)}")
-                vals = []
-                for c, cell in zip(header, row):
-                    cell = cell.strip()
-                    if not cell:
-                        vals.append(math.nan)
-                        continue
-                    try:
-                        v = float(cell)
-                    except ValueError:
-                        raise InputError(src, ln, f"column '{c}': expected a number or a blank cell, "
-                                         f"got {cell[:40]!r}") from None
-                    if math.isinf(v):
-                        raise InputError(src, ln, f"column '{c}': expected a finite number, got '{cell}'")
-                    vals.append(v)
-                if math.isnan(vals[ti]):
-                    raise InputError(src, ln, "column 't' is blank")
-                if si is not None and vals[si] > peak:
-                    peak, peak_t = vals[si], vals[ti]
-                if i % stride == 0:
-                    kept.append(vals)
-                    last = None
-                    if len(kept) > 2 * max_rows:
-                        kept = kept[::2]
-                        stride *= 2
-                else:
-                    last = vals
-                i += 1
-        except csv.Error as exc:
-            raise InputError(src, reader.line_num, f"malformed CSV: {exc}") from None
-        except UnicodeDecodeError as exc:
-            raise InputError(src, None, f"not a text file: {exc.reason}") from None
-    if not kept:
+        for first, lines, _ in tf.blocks():
+            if not lines:
+                continue
+            cells = b",".join(lines).split(b",")
+            where = lambda j: (src, first + j // nc, header[j % nc])
+            block = floats(cells, where).reshape(len(lines), nc)
+            bad = np.argwhere(np.isinf(block))
+            if len(bad):
+                r, c = bad[0]
+                raise InputError(src, first + int(r), f"column '{header[c]}': expected a finite number")
+            blank = np.flatnonzero(np.isnan(block[:, ti]))
+            if len(blank):
+                raise InputError(src, first + int(blank[0]), "column 't' is blank")
+            if si is not None and np.any(np.isfinite(block[:, si])):
+                j = int(np.nanargmax(block[:, si]))
+                if block[j, si] > peak:
+                    peak, peak_t = float(block[j, si]), float(block[j, ti])
+            k = i + np.arange(len(block))
+            kept.append(block[k % stride == 0])
+            last = block[-1]
+            i += len(block)
+            if sum(len(b) for b in kept) > 2 * max_rows:
+                allk = np.vstack(kept)
+                while len(allk) > 2 * max_rows:     # keep rows k = 0, s, 2s, ... with s doubled
+                    allk, stride = allk[::2], stride * 2
+                kept = [allk]
+    finally:
+        tf.close()
+    if i == 0:
         raise InputError(src, 2, "the trace has no rows")
-    if last is not None:
-        kept.append(last)
-    arr = np.array(kept, dtype=float)
+    arr = np.vstack(kept)
+    if (i - 1) % stride:
+        arr = np.vstack([arr, last])                # the last row is always kept
     data = {c: arr[:, j] for j, c in enumerate(header)}
     wheels = []
     for c in header:
         name, dot, part = c.rpartition(".")
         if dot and part == "spin" and name not in wheels:
             wheels.append(name)
-    return Trace(src, header, data, wheels, i, stride, peak if si is not None else math.nan, peak_t,
-                 os.path.basename(src))
+    return Trace(src, header, data, wheels, i, stride, peak if si is not None and peak > -math.inf else math.nan,
+                 peak_t, os.path.basename(src))
 
 
 def _heading_ticks(ax, tr, colour, n=24):

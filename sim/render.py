@@ -473,7 +473,6 @@ class Renderer:
 
     def _wheels(self, surf, row):
         pg = _pg()
-        a = self.robot.arrays
         pose = row.pose
         skid = np.hypot(*wheel_skid(self.robot, row).T)
         for i, w in enumerate(self.robot.wheels):
@@ -681,11 +680,14 @@ class Renderer:
             self._text(surf, value, (x + 88, y), PALETTE["ink"], 18)
             y += 19
         y += 4
+        legend_top = H - 178
         for note in command_notes(self.robot, row, self.align, self.align_tolerance) + notes:
             for ln in self._wrap(note, W - 2 * x, 18):
+                if y + 18 > legend_top - 10:        # no room left: the legend stays readable
+                    break
                 self._text(surf, ln, (x, y), PALETTE["skid"], 18)
                 y += 18
-        self._legend(surf, x, H - 178)
+        self._legend(surf, x, legend_top)
 
     def _legend(self, surf, x, y):
         pg = _pg()
@@ -829,18 +831,20 @@ class Window:
         return [self.stick.get_axis(i) for i in range(self.stick.get_numaxes())]
 
     def show(self, surface, help_lines=None) -> None:
-        """Copy ``surface`` to the screen (plus a help box when given) and flip."""
+        """Copy ``surface`` to the screen and flip; ``help_lines``: (key, meaning) pairs boxed on top."""
         pg = _pg()
         self.screen.blit(surface, (0, 0))
         if help_lines:
             font = pg.font.Font(None, 20)
-            w = max(font.size(s)[0] for s in help_lines) + 28
+            kw = max(font.size(k)[0] for k, _ in help_lines) + 16
+            w = kw + max(font.size(t)[0] for _, t in help_lines) + 28
             h = 22 * len(help_lines) + 20
             x0 = PANEL_W + 20
             pg.draw.rect(self.screen, PALETTE["panel"], pg.Rect(x0, 20, w, h))
             pg.draw.rect(self.screen, PALETTE["ink"], pg.Rect(x0, 20, w, h), 2)
-            for i, s in enumerate(help_lines):
-                self.screen.blit(font.render(s, True, PALETTE["ink"]), (x0 + 14, 30 + 22 * i))
+            for i, (k, t) in enumerate(help_lines):
+                self.screen.blit(font.render(k, True, PALETTE["body_edge"]), (x0 + 14, 30 + 22 * i))
+                self.screen.blit(font.render(t, True, PALETTE["ink"]), (x0 + 14 + kw, 30 + 22 * i))
         pg.display.flip()
 
     def tick(self, fps: float = 60.0) -> float:

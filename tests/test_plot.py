@@ -102,13 +102,14 @@ HEAD = "t,x,y,theta,slip"
 @pytest.mark.parametrize("text, line, fragment", [
     ("", 1, "empty file"),
     ("t,x,y,slip\n0,0,0,0\n", 1, "missing column(s) theta"),
-    ("t,x,y,x,theta\n0,0,0,0,0\n", 1, "repeated column(s) x"),
+    ("t,x,y,x,theta\n0,0,0,0,0\n", 1, "column 'x' appears twice"),
     (HEAD + "\n", 2, "no rows"),
     (HEAD + "\n0,0,0,0,0\n0.01,abc,0,0,0\n", 3, "column 'x': expected a number or a blank cell, got 'abc'"),
     (HEAD + "\n0,0,0,0\n", 2, "expected 5 cells, got 4"),
     (HEAD + "\n0,inf,0,0,0\n", 2, "expected a finite number"),
     (HEAD + "\n,0,0,0,0\n", 2, "column 't' is blank"),
-    (HEAD + '\n0,"0\n', 2, "malformed CSV"),
+    (HEAD + '\n0,"0\n', 2, "expected 5 cells, got 2"),
+    (HEAD + "\n0,0,0,0,0\n0.01,\xe9,0,0,0\n", 3, "not plain text"),
 ])
 def test_bad_traces(cli, expect_input_error, write_files, tmp_path, text, line, fragment):
     p = write_files(tmp_path, {"bad.csv": text})["bad.csv"]
@@ -119,7 +120,7 @@ def test_bad_traces(cli, expect_input_error, write_files, tmp_path, text, line, 
 
 def test_missing_trace_and_output_directory(cli, expect_input_error, arc_trace, tmp_path):
     code, _, err = cli(["plot", tmp_path / "nope.csv", "-o", tmp_path / "o.png"])
-    expect_input_error(code, err, tmp_path / "nope.csv", None, "cannot read file")
+    expect_input_error(code, err, tmp_path / "nope.csv", None, "file not found")
     path, _ = arc_trace
     code, _, err = cli(["plot", path, "-o", tmp_path / "no" / "o.png"])
     expect_input_error(code, err, "-o", None, "does not exist")

@@ -16,6 +16,8 @@ def add_arguments(p):
     p.add_argument("--jobs", type=int, default=None, metavar="N",
                    help="worker processes (default: all cores; 1 runs in this process)")
     p.add_argument("--junit", metavar="FILE", help="also write the results as JUnit XML")
+    p.add_argument("--scheduler", metavar="ADDRESS",
+                   help="send the runs to a Dask scheduler (e.g. tcp://10.0.0.5:8786; extra [cluster])")
     from .diff import add_tolerance_arguments
     add_tolerance_arguments(p)
 
@@ -69,7 +71,12 @@ def run(args) -> int:
     units = find_scenarios(args.paths)
     if args.baselines:
         check_baseline_names(units, args.baselines)
-    results = run_units(units, args.baselines, args.update, jobs, tol, rules, on_done=_Progress(units))
+    if args.scheduler:
+        from ..cluster import run_units_dask
+        results = run_units_dask(units, args.scheduler, args.baselines, args.update, tol, rules,
+                                 on_done=_Progress(units))
+    else:
+        results = run_units(units, args.baselines, args.update, jobs, tol, rules, on_done=_Progress(units))
     print(table(results, update=args.update))
     why = details(results)
     if why:

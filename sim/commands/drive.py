@@ -11,7 +11,8 @@ def add_arguments(p):
                    help="write the trace CSV there, plus PATH-stem.commands.csv and PATH-stem.scenario.yaml "
                         "to replay it with trundle run")
     p.add_argument("--step", type=float, default=0.01, metavar="S", help="engine step in s (default 0.01)")
-    p.add_argument("--align", default="wait", choices=("wait", "cosine", "none"),
+    from ..engine import ALIGN_POLICIES
+    p.add_argument("--align", default="wait", choices=ALIGN_POLICIES,
                    help="starting steering policy (P cycles it while driving)")
     p.add_argument("--deadband", type=float, default=0.15, metavar="D",
                    help="gamepad stick dead band, 0..1 of full deflection (default 0.15)")
