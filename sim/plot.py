@@ -273,3 +273,44 @@ def plot_traces(path, out, compare=None, max_rows: int = 20000):
             os.remove(part)
         raise
     return fig, traces
+
+
+def plot_square_test(path, before, after=None, title: str = "") -> bool:
+    """Scatter of the return errors (mm) before/after correction as a PNG.
+
+    Returns False (and writes nothing) when matplotlib is not installed.
+    ``before``/``after`` are :class:`sim.calibrate.SquareRuns`.
+    """
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+    except ImportError:
+        return False
+    fig = Figure(figsize=(6.0, 6.0), dpi=100)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot(1, 1, 1)
+    sets = [("before", before, ("tab:blue", "tab:red"))]
+    if after is not None:
+        sets.append(("after", after, ("tab:cyan", "tab:orange")))
+    for label, runs, colours in sets:
+        for d, pts, col, mark in (("cw", runs.cw, colours[0], "o"), ("ccw", runs.ccw, colours[1], "s")):
+            ax.scatter(pts[:, 0] * 1e3, pts[:, 1] * 1e3, c=col, marker=mark, s=24, label=f"{d} {label}")
+            cg = pts.mean(axis=0) * 1e3
+            ax.scatter([cg[0]], [cg[1]], c=col, marker="+", s=160)
+    ax.axhline(0.0, color="0.7", lw=0.8)
+    ax.axvline(0.0, color="0.7", lw=0.8)
+    ax.set_xlabel("return error x (mm), along the first leg")
+    ax.set_ylabel("return error y (mm), to the left")
+    ax.set_aspect("equal", adjustable="datalim")
+    ax.legend(loc="best", fontsize=8)
+    ax.set_title(title or f"square test, side {before.side:g} m (+ centre of gravity)", fontsize=10)
+    path = os.fspath(path)
+    part = path + ".part"
+    try:
+        fig.savefig(part, format="png")
+        os.replace(part, path)
+    except BaseException:
+        if os.path.exists(part):
+            os.remove(part)
+        raise
+    return True

@@ -243,7 +243,7 @@ def wheel_skid(robot, row) -> np.ndarray:
 
 def reach(robot) -> float:
     """m, the farthest point of footprint or wheel from the body origin."""
-    r = math.hypot(robot.length / 2, robot.width / 2)
+    r = math.hypot(abs(robot.footprint_x) + robot.length / 2, abs(robot.footprint_y) + robot.width / 2)
     for w in robot.wheels:
         r = max(r, math.hypot(w.x, w.y) + w.trail + w.radius)
     return r
@@ -451,13 +451,15 @@ class Renderer:
     def _footprint(self, surf, pose, fill, edge, width):
         pg = _pg()
         L, W = self.robot.length / 2, self.robot.width / 2
-        pts = self._ipts(self._body_to_screen(pose, [(L, W), (-L, W), (-L, -W), (L, -W)]))
+        cx, cy = self.robot.footprint_x, self.robot.footprint_y
+        pts = self._ipts(self._body_to_screen(pose, [(cx + L, cy + W), (cx - L, cy + W),
+                                                     (cx - L, cy - W), (cx + L, cy - W)]))
         if fill is not None:
             pg.draw.polygon(surf, fill, pts)
         pg.draw.polygon(surf, edge, pts, width)
         # front chevron
-        c = self._ipts(self._body_to_screen(pose, [(L - 0.35 * W, 0.5 * W), (L - 0.05 * W, 0.0),
-                                                   (L - 0.35 * W, -0.5 * W)]))
+        c = self._ipts(self._body_to_screen(pose, [(cx + L - 0.35 * W, cy + 0.5 * W), (cx + L - 0.05 * W, cy),
+                                                   (cx + L - 0.35 * W, cy - 0.5 * W)]))
         pg.draw.lines(surf, edge, False, c, width)
 
     def _axles(self, surf, row):

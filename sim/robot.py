@@ -97,13 +97,19 @@ class Wheel:
 
 @dataclass(frozen=True)
 class Robot:
-    """A wheeled base: a name, a footprint for drawing, and its wheels in file order."""
+    """A wheeled base: a name, a footprint for drawing, and its wheels in file order.
+
+    The footprint is a ``length`` x ``width`` rectangle (m) centred at body
+    point (``footprint_x``, ``footprint_y``), for drawing only.
+    """
 
     name: str
     wheels: tuple
     length: float = 0.6
     width: float = 0.4
     source: str = "<inline>"
+    footprint_x: float = 0.0
+    footprint_y: float = 0.0
 
     def wheel(self, name: str) -> Wheel:
         for w in self.wheels:
@@ -187,13 +193,15 @@ def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None
     data = F.expect_map(data, where, "a robot description (a mapping with name, footprint, wheels)")
     F.check_keys(data, _ROBOT_KEYS, where, required=("wheels",))
     name = F.name(data["name"], where.at(data, "name")) if "name" in data else "robot"
-    length, width = 0.6, 0.4
+    length, width, fx, fy = 0.6, 0.4, 0.0, 0.0
     if "footprint" in data:
         fw = where.at(data, "footprint")
-        fp = F.expect_map(data["footprint"], fw, "a mapping {length, width}")
-        F.check_keys(fp, ("length", "width"), fw, required=("length", "width"))
+        fp = F.expect_map(data["footprint"], fw, "a mapping {length, width, x, y}")
+        F.check_keys(fp, ("length", "width", "x", "y"), fw, required=("length", "width"))
         length = F.number(fp["length"], fw.at(fp, "length"), positive=True, unit="m")
         width = F.number(fp["width"], fw.at(fp, "width"), positive=True, unit="m")
+        fx = F.number(fp.get("x", 0.0), fw.at(fp, "x"), unit="m")
+        fy = F.number(fp.get("y", 0.0), fw.at(fp, "y"), unit="m")
     ww = where.at(data, "wheels")
     items = F.expect_list(data["wheels"], ww, "a list of wheels")
     if not items:
@@ -205,7 +213,8 @@ def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None
             raise ww.at(items, i).error(f"duplicate wheel name '{w.name}' (first used on line {seen[w.name]})")
         seen[w.name] = w.line
         wheels.append(w)
-    return Robot(name=name, wheels=tuple(wheels), length=length, width=width, source=source)
+    return Robot(name=name, wheels=tuple(wheels), length=length, width=width, source=source,
+                 footprint_x=fx, footprint_y=fy)
 
 
 def _wheel(item, where: F.Where) -> Wheel:

@@ -118,7 +118,8 @@ def run(args) -> int:
         f"square test (Borenstein & Feng 1996): Ed = {u.Ed:.6f}, Eb = {u.Eb:.6f}; {origin}")))
     lines.append(f"wrote       {out}")
     if args.plot:
-        if C.plot_square_test(args.plot, before, after, f"{robot.name}: square test, side {before.side:g} m"):
+        from ..plot import plot_square_test
+        if plot_square_test(args.plot, before, after, f"{robot.name}: square test, side {before.side:g} m"):
             lines.append(f"plot        {args.plot}")
         else:
             lines.append("plot        skipped: matplotlib is not installed (pip install matplotlib)")
