@@ -193,11 +193,20 @@ def format_block(values) -> bytes:
     uniq = v.T.reshape(-1)[order]
     run = np.cumsum(order).reshape(ncols, m).T - 1  # (m, ncols) index into uniq
     chars = _chars(uniq)
-    width = int(np.max(np.count_nonzero(chars, axis=1))) if len(chars) else 0
-    full = np.zeros((m, ncols, width + 2), dtype=np.uint8)
-    full[:, :, :width] = chars[run, :width]
-    full[:, :-1, width] = 44
-    full[:, -1, width] = 13
-    full[:, -1, width + 1] = 10
+    lengths = np.count_nonzero(chars, axis=1)
+    # each column as wide as its widest value, then its separator
+    bounds = np.concatenate([[0], np.cumsum(order.reshape(ncols, m).sum(axis=1))])
+    widths = [int(lengths[bounds[j]:bounds[j + 1]].max()) if bounds[j + 1] > bounds[j] else 0
+              for j in range(ncols)]
+    total = sum(widths) + ncols + 1
+    full = np.zeros((m, total), dtype=np.uint8)
+    pos = 0
+    for j, w in enumerate(widths):
+        if w:
+            full[:, pos:pos + w] = chars[run[:, j], :w]
+        pos += w
+        full[:, pos] = 44 if j < ncols - 1 else 13
+        pos += 1
+    full[:, pos] = 10
     flat = full.reshape(-1)
     return flat[flat != 0].tobytes()

@@ -47,12 +47,13 @@ class TraceWriter:
 
     ``close()`` renames the finished file into place; ``abort()`` removes it
     (used when a run fails for a reason that is not an interruption).  Rows
-    are formatted in pieces of at most ``block`` rows (optionally on a thread
-    pool), written in order; memory stays bounded by a few pieces.
+    are formatted in pieces of at most ``block`` rows, written in order;
+    memory stays bounded by a few pieces.  With ``workers`` > 0 the pieces are
+    formatted in that many worker processes while the caller goes on
+    simulating (worth it for long runs on a machine with spare cores).
     """
 
-    def __init__(self, path, header, block: int = 8192, threads: int = 1):
-        from concurrent.futures import ThreadPoolExecutor
+    def __init__(self, path, header, block: int = 8192, workers: int = 0):
         self.path = os.fspath(path)
         self.part = self.path + ".part"
         self.block = block
@@ -63,9 +64,13 @@ class TraceWriter:
             from .errors import InputError
             raise InputError(self.path, None, f"cannot write the trace: {exc.strerror}") from None
         self._fh.write((",".join(header) + "\r\n").encode("utf-8"))
-        self._pool = ThreadPoolExecutor(max_workers=threads) if threads > 1 else None
+        self._pool = None
+        if workers > 0:
+            from concurrent.futures import ProcessPoolExecutor
+            from .batch import pool_context
+            self._pool = ProcessPoolExecutor(max_workers=workers, mp_context=pool_context())
         self._pending = []
-        self._depth = max(2, threads + 1)
+        self._depth = 2 * workers + 1
         self.rows = 0
 
     def write(self, values) -> None:
