@@ -49,6 +49,7 @@ import numpy as np
 from . import fields as F
 from .engine import Simulator
 from .errors import InputError
+from .fields import cell_number
 from .kinematics import inverse_matrix
 from .odometry import Odometer, OdometrySpec
 from .robot import Robot
@@ -371,16 +372,7 @@ def _read_csv(source, side):
                 d = row[col["direction"]].strip().lower()
                 if d not in pts:
                     raise InputError(source, ln, f"direction must be cw or ccw, got '{row[col['direction']]}'")
-                vals = []
-                for c in ("x", "y"):
-                    cell = row[col[c]]
-                    try:
-                        v = float(cell)
-                    except ValueError:
-                        raise InputError(source, ln, f"column '{c}': expected a number (m), got '{cell}'") from None
-                    if not math.isfinite(v):
-                        raise InputError(source, ln, f"column '{c}': expected a finite number, got '{cell}'")
-                    vals.append(v)
+                vals = [cell_number(row[col[c]], source, ln, c, "m") for c in ("x", "y")]
                 pts[d].append(vals)
                 first[d] = first[d] or ln
         except csv.Error as exc:

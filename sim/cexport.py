@@ -32,10 +32,10 @@ def c_header(robot, mats, heading, source_note: str) -> str:
          f"static const char *const {tag}_WHEEL_NAMES[{n}] = {{"
          + ", ".join(f'"{nm}"' for nm in names) + "};",
          f"static const double {tag}_WHEEL_RADIUS_M[{n}] = {{" + ", ".join(_c(r) for r in radius) + "};", "",
-         f"/* twist[i] = sum_j FORWARD[i][j] * spin[j] */",
+         "/* twist[i] = sum_j FORWARD[i][j] * spin[j] */",
          f"static const double {tag}_FORWARD[3][{n}] = {{"]
     L += ["    {" + ", ".join(_c(v) for v in row) + "}," for row in F]
-    L += ["};", "", f"/* spin[j] = sum_i INVERSE[j][i] * twist[i] */",
+    L += ["};", "", "/* spin[j] = sum_i INVERSE[j][i] * twist[i] */",
           f"static const double {tag}_INVERSE[{n}][3] = {{"]
     L += ["    {" + ", ".join(_c(v) for v in row) + "}," for row in K]
     L += ["};", "", f"#endif /* TRUNDLE_{tag}_H */", ""]

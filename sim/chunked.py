@@ -28,7 +28,7 @@ import numpy as np
 
 from .castor import _flow_coefficients
 from .constraints import contact_velocity, motion_rows, rolling_rows
-from .engine import ICR_OMEGA_MIN, Simulator, StepResult
+from .engine import ICR_OMEGA_MIN, Simulator, StepResult, step_times
 from .kinematics import RANK_TOL, _scale, inverse, snap
 from .se2 import body_increment
 
@@ -405,7 +405,7 @@ class ChunkedSimulator(Simulator):
         modes = [p["twist_mode"] for p in plans]
         k0 = self.k
         block = Block(
-            k0=k0, t=np.arange(k0, k0 + m) * dt, pose=pose, twist=xi, icr=icr, slip=slip,
+            k0=k0, t=step_times(np.arange(k0, k0 + m), dt), pose=pose, twist=xi, icr=icr, slip=slip,
             cmd=rep("cmd"), spin_cmd=spin_cmd, spin=spin, steer_cmd=steer_cmd, steer=steer,
             slip_long=slip_long, slip_lat=slip_lat, angle=angle[:-1],
             shortfall=rep("shortfall"), rank=rank, twist_mode=all(modes) if len(set(modes)) == 1 else None)

@@ -42,6 +42,15 @@ def main(argv=None) -> int:
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
+    import signal
+
+    def _terminate(signum, frame):  # a CI time-out or kill: finish files like Ctrl-C does
+        raise KeyboardInterrupt
+
+    try:
+        old = signal.signal(signal.SIGTERM, _terminate)
+    except ValueError:  # not the main thread
+        old = None
     try:
         return int(args._run(args) or 0)
     except InputError as exc:
@@ -50,5 +59,14 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return 130
+    except ModuleNotFoundError as exc:
+        if exc.name not in ("pygame", "matplotlib", "distributed"):
+            raise
+        print(f"trundle {args.command}: needs {exc.name}, which is not installed: "
+              "pip install 'trundle[view]' (or '.[view]' in a checkout)", file=sys.stderr)
+        return 2
     except BrokenPipeError:
         return 0
+    finally:
+        if old is not None:
+            signal.signal(signal.SIGTERM, old)

@@ -40,6 +40,19 @@ DEFAULT_ALIGN_TOLERANCE = math.radians(2.0)
 ICR_OMEGA_MIN = 1e-9  # rad/s: below this the motion counts as pure translation (no ICR)
 
 
+def step_times(k, dt: float):
+    """Time (s) of step ``k`` (int or int array).
+
+    ``k / rate`` when the step is 1/rate for a whole rate (0.01 s, 1 ms, ...),
+    so times are the nearest doubles to their decimals (0.35, not
+    0.35000000000000003); ``k * dt`` otherwise.
+    """
+    rate = round(1.0 / dt)
+    if rate >= 1 and abs(1.0 / dt - rate) <= 1e-9 * rate:
+        return k / rate
+    return k * dt
+
+
 @dataclass(frozen=True)
 class StepResult:
     """Row k of a run.  Shapes: pose, twist (3,); per-wheel arrays (n,).
@@ -118,7 +131,7 @@ class Simulator:
 
     @property
     def t(self) -> float:
-        return self.k * self.dt
+        return step_times(self.k, self.dt)
 
     # -- commands --------------------------------------------------------
     def command_twist(self, twist) -> None:

@@ -31,3 +31,11 @@ class InputError(Exception):
         if self.line is not None:
             where = f"{where}:{self.line}"
         return f"{where}: {self.message}"
+
+
+def require(module: str, purpose: str) -> None:
+    """Raise :class:`InputError` unless ``module`` can be imported (an optional extra)."""
+    import importlib.util
+    if importlib.util.find_spec(module) is None:
+        raise InputError(purpose, None, f"needs {module}, which is not installed: "
+                         "pip install 'trundle[view]' (or pip install -e '.[view]' in a checkout)")

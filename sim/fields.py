@@ -145,3 +145,14 @@ def name(value, where: Where) -> str:
     if not isinstance(value, str) or not re.fullmatch(r"[A-Za-z0-9_-]+", value):
         raise where.error(f"names use letters, digits, '_' and '-' only, got {describe(value)}")
     return value
+
+
+def cell_number(cell: str, source: str, line: int, column: str, unit: str = "") -> float:
+    """A finite number from a CSV cell, or InputError ``source:line: column 'c': ...``."""
+    try:
+        v = float(cell)
+    except ValueError:
+        raise InputError(source, line, f"column '{column}': expected a number{_u(unit)}, got '{cell}'") from None
+    if not math.isfinite(v):
+        raise InputError(source, line, f"column '{column}': expected a finite number, got '{cell}'")
+    return v

@@ -110,15 +110,18 @@ def _mantissas(a):
     limit = 0.499 * gap  # 0.998 of the half gap
     M, p = M17.copy(), np.full(len(a), 17)
     ok = (np.abs(frac) < limit) & ~up & ~down & (np.abs(16 - e10) < _KMAX)
+    E = e10.copy()
     for digits, div in ((16, 10), (15, 100)):
         q, rem = np.divmod(M17, div)
         t = (rem + frac) / div
         cand = q + (t >= 0.5)
         dist = np.abs((cand * div - M17) - frac)
         fits = ok & (dist < limit)
-        M = np.where(fits, cand, M)
+        carry = cand >= 10 ** digits  # 99..9.5 rounded up: one digit more, one decade up
+        M = np.where(fits, np.where(carry, cand // 10, cand), M)
+        E = np.where(fits, e10 + carry, E)
         p = np.where(fits, digits, p)
-    return M, p, e10, ok
+    return M, p, E, ok
 
 
 def _chars(x):

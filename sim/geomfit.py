@@ -32,6 +32,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from .errors import InputError
+from .fields import cell_number
 from .odometry import DeadReckoner, integrate, wrap
 from .robot import Robot
 
@@ -123,15 +124,7 @@ def read_record(path, robot: Robot, wheels) -> Record:
                     continue
                 if len(row) != len(header):
                     raise InputError(source, ln, f"expected {len(header)} cells, got {len(row)}")
-                vals = []
-                for c, j in zip(need, at):
-                    try:
-                        v = float(row[j])
-                    except ValueError:
-                        raise InputError(source, ln, f"column '{c}': expected a number, got '{row[j]}'") from None
-                    if not math.isfinite(v):
-                        raise InputError(source, ln, f"column '{c}': expected a finite number, got '{row[j]}'")
-                    vals.append(v)
+                vals = [cell_number(row[j], source, ln, c) for c, j in zip(need, at)]
                 if rows and vals[0] <= rows[-1][0]:
                     raise InputError(source, ln, f"'t' must increase, got {vals[0]:g} after {rows[-1][0]:g}")
                 rows.append(vals)

@@ -13,8 +13,7 @@ from functools import cached_property
 import numpy as np
 
 from . import fields as F
-from .errors import InputError
-from .yamlread import Map, load_file
+from .yamlread import load_file
 
 WHEEL_TYPES = ("fixed", "steered", "castor", "swedish", "ball")
 TYPE_CODE = {t: i for i, t in enumerate(WHEEL_TYPES)}

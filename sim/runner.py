@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .chunked import CHUNK, Block, ChunkedSimulator, supported
-from .engine import Simulator, StepResult
+from .engine import Simulator
 from .scenario import Scenario
 from .trace import TraceWriter, columns
 from .tracemeta import write_meta
@@ -280,8 +280,6 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     last_pos = None
     try:
         for block, extra in blocks:
-            _account(res, checks, block, last_pos)
-            last_pos = block.pose[-1, :2]
             if writer or kept is not None:
                 k = block.k0 + np.arange(len(block))
                 sel = (k % every == 0) | (k == n - 1)
@@ -293,6 +291,8 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
                     writer.write_block(vals)
                 if kept is not None:
                     kept.append(vals)
+            _account(res, checks, block, last_pos)  # after writing: the summary never claims unwritten rows
+            last_pos = block.pose[-1, :2]
     except KeyboardInterrupt:
         res.interrupted = True
     except BaseException:
@@ -335,8 +335,8 @@ def summary_text(res: RunResult) -> str:
     """The short, human summary printed by ``trundle run``."""
     s = res.scenario
     x, y, th = res.final_pose
-    lines = [f"scenario  {s.source}  ({s.robot.name}, {res.rows} steps of {s.step:g} s"
-             f"{', INTERRUPTED' if res.interrupted else ''})",
+    lines = [f"scenario  {s.source}  ({s.robot.name}, {res.rows} rows: t = 0 to "
+             f"{(res.rows - 1) * s.step:g} s in steps of {s.step:g} s{', INTERRUPTED' if res.interrupted else ''})",
              f"distance  {res.distance:.4f} m",
              f"final     x {x:.4f} m  y {y:.4f} m  theta {math.degrees(th):.3f} deg",
              f"peak slip {res.peak_slip:.4g} m/s at t={res.peak_slip_t:g} s"]

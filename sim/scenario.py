@@ -130,6 +130,10 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         script = _script(data["script"], at("script"), robot)
     else:
         raise where.error("missing 'script' (or 'commands', a CSV command log)")
+    for c in script:
+        if c.at > duration + 1e-12:
+            raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
+                             f"({duration:g} s); shorten the script or lengthen 'duration'")
     checks = _checks(data.get("checks", []), at("checks"), robot, duration) if "checks" in data else ()
     odometry = None
     if "odometry" in data:
@@ -156,7 +160,7 @@ def _start_steer(robot, value, where):
         h = F.angle(v, w)
         lo, hi = wheel.steer_limits
         if not lo <= h <= hi:
-            raise w.error(f"starting angle is outside the wheel's steer_limits")
+            raise w.error("starting angle is outside the wheel's steer_limits")
         wheels[robot.index[name]] = replace(wheel, heading=h)
     return replace(robot, wheels=tuple(wheels))
 
@@ -288,15 +292,7 @@ def _commands_csv(value, where, base_dir, robot):
                     continue
                 if len(row) != len(header):
                     raise InputError(src, ln, f"expected {len(header)} cells, got {len(row)}")
-                vals = []
-                for c, cell in zip(header, row):
-                    try:
-                        v = float(cell)
-                    except ValueError:
-                        raise InputError(src, ln, f"column '{c}': expected a number, got '{cell}'") from None
-                    if not math.isfinite(v):
-                        raise InputError(src, ln, f"column '{c}': expected a finite number, got '{cell}'")
-                    vals.append(v)
+                vals = [F.cell_number(cell, src, ln, c) for c, cell in zip(header, row)]
                 t = vals[0]
                 if t < 0 or t <= last:
                     raise InputError(src, ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")

@@ -37,7 +37,7 @@ from operator import itemgetter
 import numpy as np
 
 from .errors import InputError
-from .tracecsv import CHUNK_BYTES, TraceFile, floats
+from .tracecsv import CHUNK_BYTES, Cells, TraceFile, floats
 
 DEFAULT_TOLERANCE = 1e-9
 _TOL = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(deg|rad)?\s*$")
@@ -312,15 +312,120 @@ class _Compare:
                 "equal": self.equal, "blanks": self.blanks, "max_dev": self.max_dev, "max_row": self.max_row,
                 "max_t": self.max_t, "max_a": self.max_a, "max_b": self.max_b}
 
-    def pair(self, la, lb, row0, line_a, line_b, width):
-        """Compare aligned lines ``la[i]``, ``lb[i]`` = data row ``row0 + i``; cells at most ``width`` bytes."""
+    def pair(self, la, lb, row0, line_a, line_b, width, cells_a=(None, 0), cells_b=(None, 0)):
+        """Compare aligned lines ``la[i]``, ``lb[i]`` = data row ``row0 + i``; cells at most ``width`` bytes.
+
+        ``cells_a`` = (Cells of the block holding ``la``, row of ``la[0]`` in it),
+        or (None, 0); the same for B.
+        """
         idx = list(compress(range(len(la)), map(bytes.__ne__, la, lb)))
         if not idx:
             return
         k = len(idx)
+        got = self._differing_fast(la, lb, idx, cells_a, cells_b, line_a, line_b)
+        if got is None:
+            got = self._differing_careful(_pick(la, idx), _pick(lb, idx), idx, line_a, line_b, width)
+        r, c, va, vb, t_ne, t_pairs, time_a, time_b = got
+        d, eq, blank = _deviation(va, vb, self.heading[c])
+        self.equal &= bool(eq.all())
+        ncomp = len(self.names)
+        if blank.any():
+            self.blanks += np.bincount(c[blank], minlength=ncomp)
+        D = np.zeros((k, ncomp))
+        D[r, c] = d
+        VA = np.full((k, ncomp), np.nan)
+        VB = np.full((k, ncomp), np.nan)
+        VA[r, c] = va
+        VB[r, c] = vb
+        if self.step is None and t_ne.size:
+            tA, tB = t_pairs()
+            dt, _, _ = _deviation(tA, tB, np.zeros(t_ne.size, bool))
+            bad = np.flatnonzero(dt > self.tol_t)
+            if bad.size:
+                j = bad[0]
+                self.step = (row0 + idx[t_ne[j]], float(tA[j]), float(tB[j]))
+        if self.first is None:
+            exceed = D > self.tol
+            hit = np.flatnonzero(exceed.any(axis=1))
+            if hit.size:
+                j = hit[0]
+                cols = [(self.names[m], float(VA[j, m]), float(VB[j, m]), float(D[j, m]), float(self.tol[m]))
+                        for m in np.flatnonzero(exceed[j])]
+                self.first = Divergence(row0 + idx[j], time_a(j), time_b(j), cols)
+        top = D.argmax(axis=0)
+        val = D[top, np.arange(ncomp)]
+        for m in np.flatnonzero(val > self.max_dev):
+            j = int(top[m])
+            self.max_dev[m] = val[m]
+            self.max_row[m] = row0 + idx[j]
+            self.max_t[m] = time_a(j)
+            self.max_a[m] = VA[j, m]
+            self.max_b[m] = VB[j, m]
+
+    def _differing_fast(self, la, lb, idx, cells_a, cells_b, line_a, line_b):
+        """The differing compared cells of rows ``idx``, read by :class:`Cells`; None if it declines.
+
+        Returns ``(r, c, va, vb, t_ne, t_pairs, time_a, time_b)``: row (index
+        into ``idx``) and compared-column index of each cell that differs in
+        bytes, its values in A and B; the rows whose ``t`` cells differ and a
+        function giving their times (s) in A and B; functions row -> time (s).
+        """
+        k, nca, ncb = len(idx), self.ta.nc, self.tb.nc
+        rows = np.asarray(idx, dtype=np.int64)
+        (A, oa), (B, ob) = cells_a, cells_b
+        if A is None:                              # (the careful reading normalised the block's lines)
+            A, oa = Cells.of(_pick(la, idx), nca), np.arange(k) - rows
+        if B is None:
+            B, ob = Cells.of(_pick(lb, idx), ncb), np.arange(k) - rows
+        if A is None or B is None:
+            return None
+        ra, rb = (rows + oa) * nca, (rows + ob) * ncb              # first cell of each row in A, B
+        if self.same_layout:
+            ne = A.differ(B, (ra[:, None] + np.arange(nca)).ravel(), (rb[:, None] + np.arange(ncb)).ravel())
+            ne = ne.reshape(k, nca)
+            t_ne = np.flatnonzero(ne[:, self.ita])
+            ne &= self.colmask
+            r, cf = np.divmod(np.flatnonzero(ne), nca)
+            c = self.colpos[cf]
+            fa, fb = ra[r] + cf, rb[r] + cf
+        else:
+            cells_a = (ra[:, None] + np.asarray(self.ia, int)).ravel()
+            cells_b = (rb[:, None] + np.asarray(self.ib, int)).ravel()
+            t_ne = np.flatnonzero(A.differ(B, ra + self.ita, rb + self.itb))
+            hit = np.flatnonzero(A.differ(B, cells_a, cells_b))
+            r, c = np.divmod(hit, len(self.names))
+            fa, fb = cells_a[hit], cells_b[hit]
+        va = A.values(fa)
+        vb = B.values(fb) if va is not None else None
+        if vb is None:
+            return None                            # a cell is not a number: the careful reading says where
+
+        def times(cells, first_cells, it, path, line0, rows_):
+            """Times (s) of ``rows_`` (indices into idx) from their t cells."""
+            at = (first_cells[rows_] + it).tolist()
+            v = cells.values(at) if len(at) > 16 else None
+            if v is None:                          # few cells, or a bad one: floats() raises with file:line
+                v = floats([cells.text(i) for i in at], lambda m: (path, line0 + idx[rows_[m]], "t"))
+            return v
+
+        def t_pairs():
+            return (times(A, ra, self.ita, self.ta.path, line_a, t_ne),
+                    times(B, rb, self.itb, self.tb.path, line_b, t_ne))
+
+        def time_a(j):
+            return float(times(A, ra, self.ita, self.ta.path, line_a, np.array([j]))[0])
+
+        def time_b(j):
+            return float(times(B, rb, self.itb, self.tb.path, line_b, np.array([j]))[0])
+
+        return r, c, va, vb, t_ne, t_pairs, time_a, time_b
+
+    def _differing_careful(self, la, lb, idx, line_a, line_b, width):
+        """As :meth:`_differing_fast`, cell by cell with :func:`floats` (its errors give ``file:line``)."""
+        k = len(idx)
         nca, ncb = self.ta.nc, self.tb.nc
-        ca = b",".join(_pick(la, idx)).split(b",")
-        cb = b",".join(_pick(lb, idx)).split(b",")
+        ca = b",".join(la).split(b",")
+        cb = b",".join(lb).split(b",")
         if self.same_layout:
             dt = f"S{max(width, 1)}"
             ne = (np.array(ca, dtype=dt) != np.array(cb, dtype=dt)).reshape(k, nca)
@@ -340,48 +445,18 @@ class _Compare:
         va = floats(_pick(ca, fa.tolist()), lambda i: (self.ta.path, line_a + idx[r[i]], self.names[c[i]]))
         vb = floats(_pick(cb, fb.tolist()), lambda i: (self.tb.path, line_b + idx[r[i]], self.names[c[i]]))
 
-        def t_at(cells, nc, it, j):                # time of differing row j (s)
-            cell = cells[j * nc + it]
-            return float(cell) if cell else math.nan
+        def t_pairs():                             # times (s) of the rows whose t cells differ
+            tA = floats([ca[j * nca + self.ita] for j in t_ne], lambda i: (self.ta.path, line_a + idx[t_ne[i]], "t"))
+            tB = floats([cb[j * ncb + self.itb] for j in t_ne], lambda i: (self.tb.path, line_b + idx[t_ne[i]], "t"))
+            return tA, tB
 
-        d, eq, blank = _deviation(va, vb, self.heading[c])
-        self.equal &= bool(eq.all())
-        ncomp = len(self.names)
-        if blank.any():
-            self.blanks += np.bincount(c[blank], minlength=ncomp)
-        D = np.zeros((k, ncomp))
-        D[r, c] = d
-        VA = np.full((k, ncomp), np.nan)
-        VB = np.full((k, ncomp), np.nan)
-        VA[r, c] = va
-        VB[r, c] = vb
-        if self.step is None and t_ne.size:
-            where = lambda i: (self.ta.path, line_a + idx[t_ne[i]], "t")
-            tA = floats([ca[j * nca + self.ita] for j in t_ne], where)
-            tB = floats([cb[j * ncb + self.itb] for j in t_ne], where)
-            dt, _, _ = _deviation(tA, tB, np.zeros(t_ne.size, bool))
-            bad = np.flatnonzero(dt > self.tol_t)
-            if bad.size:
-                j = bad[0]
-                self.step = (row0 + idx[t_ne[j]], float(tA[j]), float(tB[j]))
-        if self.first is None:
-            exceed = D > self.tol
-            hit = np.flatnonzero(exceed.any(axis=1))
-            if hit.size:
-                j = hit[0]
-                cols = [(self.names[m], float(VA[j, m]), float(VB[j, m]), float(D[j, m]), float(self.tol[m]))
-                        for m in np.flatnonzero(exceed[j])]
-                self.first = Divergence(row0 + idx[j], t_at(ca, nca, self.ita, j), t_at(cb, ncb, self.itb, j), cols)
-        top = D.argmax(axis=0)
-        val = D[top, np.arange(ncomp)]
-        for m in np.flatnonzero(val > self.max_dev):
-            j = int(top[m])
-            self.max_dev[m] = val[m]
-            self.max_row[m] = row0 + idx[j]
-            self.max_t[m] = t_at(ca, nca, self.ita, j)
-            self.max_a[m] = VA[j, m]
-            self.max_b[m] = VB[j, m]
+        def time_a(j):                             # time of differing row j (s)
+            return float(floats([ca[j * nca + self.ita]], lambda i: (self.ta.path, line_a + idx[j], "t"))[0])
 
+        def time_b(j):
+            return float(floats([cb[j * ncb + self.itb]], lambda i: (self.tb.path, line_b + idx[j], "t"))[0])
+
+        return r, c, va, vb, t_ne, t_pairs, time_a, time_b
 
 def _pick(seq, idx):
     """``[seq[i] for i in idx]`` at C speed (a tuple or the list itself)."""
@@ -509,28 +584,32 @@ def _segment(plan: _Plan, chunk_bytes, cut) -> dict:
         raise
     try:
         cmp_ = _Compare(ta, tb, plan.names, plan.tols, plan.tol_t)
-        ga, gb = ta.blocks(), tb.blocks()
+        ga, gb = ta.blocks(cells=True), tb.blocks(cells=True)
         la = lb = ()
         a0 = b0 = wa = wb = 0                      # file line of la[0], lb[0]; widest cells
+        ca = cb = None                             # the blocks' Cells, la[0] is row oa of ca
+        oa = ob = 0
         while True:
             if not la:
                 nxt = next(ga, None)
                 if nxt is None:
                     break
-                a0, la, wa = nxt
+                a0, la, wa, ca = nxt
+                oa = 0
             if not lb:
                 nxt = next(gb, None)
                 if nxt is None:
                     break
-                b0, lb, wb = nxt
+                b0, lb, wb, cb = nxt
+                ob = 0
             m = min(len(la), len(lb))
             if m == len(la) == len(lb):
-                cmp_.pair(la, lb, row, a0, b0, max(wa, wb))
+                cmp_.pair(la, lb, row, a0, b0, max(wa, wb), (ca, oa), (cb, ob))
                 la = lb = ()
             else:
-                cmp_.pair(la[:m], lb[:m], row, a0, b0, max(wa, wb))
+                cmp_.pair(la[:m], lb[:m], row, a0, b0, max(wa, wb), (ca, oa), (cb, ob))
                 la, lb = la[m:], lb[m:]
-                a0, b0 = a0 + m, b0 + m
+                a0, b0, oa, ob = a0 + m, b0 + m, oa + m, ob + m
             row += m
         for _ in ga:                               # read (and check) what is left
             pass

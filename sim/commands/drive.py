@@ -19,6 +19,8 @@ def add_arguments(p):
 
 
 def run(args) -> int:
+    from ..errors import require
+    require("pygame", "trundle drive")
     import math
 
     from ..drive import DriveSession

@@ -12,6 +12,8 @@ def add_arguments(p):
 
 
 def run(args) -> int:
+    from ..errors import require
+    require("matplotlib", "trundle plot")
     from ..plot import plot_traces
 
     _, traces = plot_traces(args.trace, args.output, compare=args.compare)

@@ -1,7 +1,6 @@
 """``trundle run SCENARIO.yaml``: run a scenario headless (CSV trace, checks)."""
 from __future__ import annotations
 
-import sys
 
 NAME = "run"
 HELP = "run a scenario: summary, checks, optional CSV trace"
@@ -33,6 +32,9 @@ def run(args) -> int:
 
     if args.every < 1:
         raise InputError("--every", None, f"must be a whole number >= 1, got {args.every}")
+    if args.window or args.png or args.frames:
+        from ..errors import require
+        require("pygame", "--window/--png/--frames")
     scen = load_scenario(args.scenario)
     if args.baseline:
         return _run_baseline(args, scen)
