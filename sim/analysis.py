@@ -175,7 +175,7 @@ def analyze(robot: Robot) -> Analysis:
         else:
             redundant.append(names[didx[i]])
     relations = []
-    if redundant and not np.any(a.is_("steered", "castor") & a.driven):
+    if redundant and not np.any(a.is_("steered") | (a.is_("castor") & a.driven)):
         rc = a.radius[didx] * np.cos(a.roller[didx])
         for i in range(len(didx)):
             if names[didx[i]] not in redundant:
@@ -192,9 +192,14 @@ def analyze(robot: Robot) -> Analysis:
         uncontrolled.append({"vx": _r(t[0]), "vy": _r(t[1]), "omega": _r(t[2]),
                              "text": _twist_text(t)})
     sing = _singularities(robot, icr, dm)
+    # report the generic steering as angles the wheels can take (h or h + pi, within limits)
+    from .kinematics import choose_angle
+    idx = np.flatnonzero(st)
+    shown, _ = choose_angle(h[idx], 1.0, np.clip(0.0, a.steer_lo[idx], a.steer_hi[idx]),
+                            a.steer_lo[idx], a.steer_hi[idx])
     return Analysis(robot.name, dm, ds, dM, dm == 3, kind, icr, driven, redundant, relations,
                     uncontrolled, sing, warnings,
-                    {names[i]: float(h[i]) for i in np.flatnonzero(st)})
+                    {names[i]: float(v) for i, v in zip(idx, shown)})
 
 
 def _r(v, nd=6):

@@ -37,7 +37,8 @@ def analysis_text(robot, A: Analysis) -> str:
         L.append("  uncontrolled     none: the driven wheels control every motion the base can make")
     if A.generic_steer:
         ang = ", ".join(f"{k} {math.degrees(v):.1f} deg" for k, v in A.generic_steer.items())
-        L.append(f"  (degrees computed at a generic admissible steering: {ang})")
+        L.append(f"  (degrees computed at a generic steering that lets the base move: {ang};")
+        L.append("   steering limits are not considered here, see the singularities)")
     L += ["", "Steering singularities"]
     L += [f"  - {s}" for s in A.singularities] or ["  none"]
     if A.warnings:
@@ -51,9 +52,10 @@ def matrix_text(name: str, M, rows=None, cols=("vx", "vy", "omega")) -> str:
         return f"{name}: (no rows)"
     rows = list(rows) if rows is not None else [str(i) for i in range(M.shape[0])]
     w = max(len(r) for r in rows)
-    out = [f"{name}:", " " * (w + 2) + "".join(f"{c:>12}" for c in cols)]
+    cw = max([12] + [len(c) + 2 for c in cols])
+    out = [f"{name}:", " " * (w + 2) + "".join(f"{c:>{cw}}" for c in cols)]
     for r, vals in zip(rows, M):
-        out.append(f"  {r:<{w}}" + "".join(f"{v + 0.0:12.6f}" for v in vals))
+        out.append(f"  {r:<{w}}" + "".join(f"{v + 0.0:{cw}.6f}" for v in vals))
     return "\n".join(out)
 
 
@@ -63,6 +65,11 @@ def matrices_text(robot, mats, heading) -> str:
                     if w.type in ("steered", "castor"))
     L = [f"{robot.name}: matrices at wheel headings{': ' + ang if ang else ' (no steering)'}",
          "rows act on the body twist (vx m/s, vy m/s, omega rad/s)", ""]
+    from .analysis import rank
+    from .kinematics import _scale
+    if len(s.C1) and rank(s.C1 * _scale(robot)) == 3:
+        L += ["warning: at these headings the fixed and steered wheels' axles do not meet in one point:",
+              "         no body motion is free of sideways slip (the forward matrix is a least-squares compromise)", ""]
     L.append(matrix_text("J1f  rolling rows, driven wheels of fixed angle", s.J1f, s.J1f_names))
     L.append(matrix_text("J1s  rolling rows, driven wheels of variable angle", s.J1s, s.J1s_names))
     L.append(matrix_text("C1f  no-sliding rows, fixed wheels", s.C1f, s.C1f_names))
@@ -73,7 +80,7 @@ def matrices_text(robot, mats, heading) -> str:
     L.append("J2   r cos(roller) of driven wheels (m): "
              + (", ".join(f"{n} {v:.6g}" for n, v in zip(s.driven_names, s.J2)) or "none"))
     L.append("")
-    L.append(matrix_text("forward  twist = F spin (least squares)", np.asarray(mats["forward"]).T,
-                         mats["driven"], cols=("vx", "vy", "omega")) + "\n  (rows: wheel, columns: twist contribution per rad/s)")
+    L.append(matrix_text("forward  twist = F spin (least squares; columns: driven wheels, per rad/s)",
+                         mats["forward"], ("vx", "vy", "omega"), cols=mats["driven"]))
     L.append(matrix_text("inverse  spin = K twist", mats["inverse"], mats["driven"]))
     return "\n".join(L)

@@ -218,7 +218,7 @@ def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None
 
 def _wheel(item, where: F.Where) -> Wheel:
     item = F.expect_map(item, where, "a wheel mapping")
-    F.check_keys(item, _COMMON + tuple(k for ks in _EXTRA.values() for k in ks), where,
+    F.check_keys(item, _COMMON + tuple(dict.fromkeys(k for ks in _EXTRA.values() for k in ks)), where,
                  required=("name", "type", "x", "y", "radius"))
     at = lambda k: where.at(item, k)
     wtype = F.choice(item["type"], WHEEL_TYPES, at("type"))

@@ -345,7 +345,8 @@ def _to_double(M, q):
         r = p + c
         bb = r - p
         err = (p - (r - bb)) + (c - bb)          # p + c = r + err exactly (Knuth's two-sum)
-        gap = np.where(err >= 0, np.spacing(r), r - np.nextafter(r, 0.0))    # to the neighbour on err's side
+        # the neighbouring double on err's side (r > 0: its bit pattern +-1), and the gap to it
+        gap = np.abs((r.view(np.int64) + ((err >= 0) * 2 - 1)).view(np.float64) - r)
         good = np.abs(err) + r * 2.0 ** -90 < 0.5 * gap
         good &= (r > 1e-250) & (r < 1e250) & (qs >= _QMIN) & (qs <= _QMAX)
     x[slow] = r
@@ -544,7 +545,7 @@ class Cells:
         q -= _N_AFTER[pos]
         x, ok = _to_double(M, q)
         ok &= ~big
-        x[neg] = -x[neg]
+        np.negative(x, out=x, where=neg)
         x[L == 0] = np.nan
         for i in np.flatnonzero(~ok & (L > 0)).tolist():
             x[i] = float(self.text(idx[i]))

@@ -25,19 +25,18 @@ def test_readme_python_example_runs():
     assert p.returncode == 0, p.stderr
     nums = [float(v) for v in re.findall(r"[-+]?\d+\.?\d*(?:e[-+]?\d+)?", p.stdout)]
     t, x, y, theta, slip = nums
-    # 4 x (200 + 100) steps of 0.01 s: the last row is step 1199, at t = 11.99 s
-    assert t == 11.99
+    # 4 x (200 + 100) steps of 0.01 s: sim.t and sim.pose are the state after step 1199, t = 12 s
+    assert t == 12.0
     assert slip == 0.0                     # consistent twist commands never skid
     # Heading, worked by hand: each turn asks pi/2 rad/s for 1 s.  With 60 rad/s^2 and all
     # wheels ramping together, the change between a straight leg (v / r = 6.25 rad/s per
     # wheel) and a turn (+-b omega / (2 r) = 4.32 rad/s) takes T = 10.57 / 60 = 0.176 s, a
     # linear blend, so each turn's ramp-in loses (pi/2) T / 2 and the next leg's ramp-out
-    # gives it back; only the last turn keeps its loss.  The last row is the state at the
-    # start of the last step (pi/2 * 0.01 short), and the engine's actuators reach each step's
-    # speed at its start, so its ramp leads the continuous one by about half a step.
+    # gives it back; only the last turn keeps its loss.  The engine's actuators reach each
+    # step's speed at its start, so its ramp leads the continuous one by about half a step.
     r, b, dt = 0.08, 0.44, 0.01
     T = (0.5 / r + b / 2 * math.pi / 2 / r) / 60.0
-    want = 2 * math.pi - math.pi / 2 * (T / 2) - math.pi / 2 * dt + math.pi / 2 * dt / 2
+    want = 2 * math.pi - math.pi / 2 * (T / 2) + math.pi / 2 * dt / 2
     assert abs(theta - want) < 2e-3
     # open loop, the square nearly closes: the blended corners leave it a few cm off
     assert math.hypot(x, y) < 0.05
