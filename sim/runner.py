@@ -38,6 +38,8 @@ class RunResult:
     peak_slip: float = 0.0
     peak_slip_t: float = 0.0
     peak_shortfall: float = 0.0
+    peak_shortfall_twist: tuple = (0.0, 0.0, 0.0)
+    peak_shortfall_t: float = 0.0
     underdetermined_t: float | None = None
     checks: list = field(default_factory=list)
     trace: dict | None = None
@@ -311,6 +313,11 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     return res
 
 
+def _metric(robot) -> np.ndarray:
+    """Weights making a twist error one number: (1, 1, L) with L the base size (m)."""
+    return np.array([1.0, 1.0, robot.size])
+
+
 def _account(res: RunResult, checks, block, last_pos) -> None:
     """Fold one block of rows into the running summary."""
     m = len(block)
@@ -323,7 +330,11 @@ def _account(res: RunResult, checks, block, last_pos) -> None:
     i = int(np.argmax(block.slip))
     if block.slip[i] > res.peak_slip:
         res.peak_slip, res.peak_slip_t = float(block.slip[i]), float(block.t[i])
-    res.peak_shortfall = max(res.peak_shortfall, float(np.max(np.linalg.norm(block.shortfall, axis=1))))
+    sf = np.linalg.norm(block.shortfall * _metric(res.scenario.robot), axis=1)
+    j = int(np.argmax(sf))
+    if sf[j] > res.peak_shortfall:
+        res.peak_shortfall, res.peak_shortfall_t = float(sf[j]), float(block.t[j])
+        res.peak_shortfall_twist = tuple(float(v) for v in block.shortfall[j])
     low = np.flatnonzero(block.rank < 3)
     if len(low) and res.underdetermined_t is None:
         res.underdetermined_t = float(block.t[low[0]])
@@ -341,7 +352,9 @@ def summary_text(res: RunResult) -> str:
              f"final     x {x:.4f} m  y {y:.4f} m  theta {math.degrees(th):.3f} deg",
              f"peak slip {res.peak_slip:.4g} m/s at t={res.peak_slip_t:g} s"]
     if res.peak_shortfall > 1e-9:
-        lines.append(f"twist     requests the base cannot follow: largest shortfall {res.peak_shortfall:.4g}")
+        vx, vy, w = res.peak_shortfall_twist
+        lines.append(f"twist     requests the base cannot follow: largest shortfall at t={res.peak_shortfall_t:g} s, "
+                     f"vx {vx:.4g} m/s, vy {vy:.4g} m/s, omega {w:.4g} rad/s (requested minus followed)")
     if res.underdetermined_t is not None:
         lines.append(f"note      from t={res.underdetermined_t:g} s the driven wheels left some motion undetermined; "
                      "the minimum-norm motion was used")

@@ -241,7 +241,8 @@ def test_diff_drive_sideways_twist_projected(engine, robot_from_yaml, scenario_f
     np.testing.assert_allclose(tr["vx"], 0.3, atol=1e-12)
     np.testing.assert_allclose(tr["omega"], 0.1, atol=1e-12)
     assert res.peak_shortfall == pytest.approx(0.2)
-    assert "shortfall 0.2" in summary_text(res)
+    assert res.peak_shortfall_twist == pytest.approx((0.0, 0.2, 0.0), abs=1e-12)
+    assert "vy 0.2 m/s" in summary_text(res)
     assert res.peak_slip < 1e-12
     np.testing.assert_allclose(tr["cmd_vy"], 0.2)   # the request is recorded as given
 
