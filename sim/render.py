@@ -58,6 +58,7 @@ ARROW_MAX = 140.0       # px: longer arrows are capped (and drawn with a bar)
 TRAIL_STEP = 0.004      # m: a pose joins the trail after moving this far (or 1 deg)
 TRAIL_LEN = 5000        # poses kept in the trail
 GHOST_LEN = 40          # earlier footprints kept
+BALL_MIN_PX = 7         # px: smallest radius a ball wheel's disc is drawn with
 _SPEED_EPS = 1e-9       # m/s: slower than this the base counts as at rest
 
 
@@ -385,8 +386,10 @@ class Renderer:
         surf.fill(PALETTE["paper"])
         surf.set_clip(pg.Rect(self.view.rect))
         self._grid(surf)
-        self._trail(surf)
-        self._footprint(surf, pose, PALETTE["body_fill"], PALETTE["body_edge"], 2)
+        self._ghosts(surf)
+        self._footprint(surf, pose, PALETTE["body_fill"], None, 2)
+        self._path(surf)                    # over the fill: the path runs up to the body origin
+        self._footprint(surf, pose, None, PALETTE["body_edge"], 2)
         self._axles(surf, row)
         self._wheels(surf, row)
         self._centre(surf, pose)
@@ -435,10 +438,12 @@ class Renderer:
         self._text(surf, "x", (o[0] + 38, o[1]), PALETTE["muted"], 16, "midleft")
         self._text(surf, "y", (o[0], o[1] - 38), PALETTE["muted"], 16, "midbottom")
 
-    def _trail(self, surf):
-        pg = _pg()
+    def _ghosts(self, surf):
         for g in self.ghosts:
             self._footprint(surf, g, None, PALETTE["ghost"], 1)
+
+    def _path(self, surf):
+        pg = _pg()
         if len(self.trail) >= 2:
             arr = np.asarray(self.trail)
             u, v = self.view.to_screen(arr[:, 0], arr[:, 1])
@@ -449,6 +454,7 @@ class Renderer:
                 pg.draw.lines(surf, PALETTE["path"], False, keep, 3)
 
     def _footprint(self, surf, pose, fill, edge, width):
+        """The footprint at ``pose``: ``fill`` and/or ``edge`` (outline and front chevron), either may be None."""
         pg = _pg()
         L, W = self.robot.length / 2, self.robot.width / 2
         cx, cy = self.robot.footprint_x, self.robot.footprint_y
@@ -456,6 +462,8 @@ class Renderer:
                                                      (cx - L, cy - W), (cx + L, cy - W)]))
         if fill is not None:
             pg.draw.polygon(surf, fill, pts)
+        if edge is None:
+            return
         pg.draw.polygon(surf, edge, pts, width)
         # front chevron
         c = self._ipts(self._body_to_screen(pose, [(cx + L - 0.35 * W, cy + 0.5 * W), (cx + L - 0.05 * W, cy),
@@ -486,10 +494,10 @@ class Renderer:
                 cx, cy = w.x, w.y
             if w.type == "ball":
                 ctr = self._ipts(self._body_to_screen(pose, [(cx, cy)]))[0]
-                rad = max(int(round(w.radius * self.view.scale)), 4)
+                # grey disc, at least BALL_MIN_PX across the radius so it never reads as the black origin dot
+                rad = max(int(round(w.radius * self.view.scale)), BALL_MIN_PX)
                 pg.draw.circle(surf, PALETTE["ball"], ctr, rad)
-                pg.draw.circle(surf, PALETTE["ink"], ctr, rad, 2)
-                pg.draw.circle(surf, PALETTE["ink"], ctr, 2)
+                pg.draw.circle(surf, PALETTE["ink"], ctr, rad, 1)
                 continue
             r = w.radius
             half_w = max(0.22 * r, 0.010, 2.5 / self.view.scale)

@@ -137,3 +137,119 @@ def test_figure_without_steering_says_so(arc_trace):
     tr.wheels = ["left", "right"]
     texts = [t.get_text() for t in figure([tr]).axes[4].texts]
     assert texts == ["no wheel changes its angle"] and not math.isnan(tr.peak_slip)
+
+
+def _write_trace(path, cols):
+    """A hand-made trace: ``cols`` maps column name -> list of numbers (None = blank cell)."""
+    names = list(cols)
+    n = len(cols[names[0]])
+    lines = [",".join(names)]
+    for k in range(n):
+        lines.append(",".join("" if cols[c][k] is None else repr(float(cols[c][k])) for c in names))
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def _hand_cols(n=41, wheels=("left",), icr=None):
+    t = np.linspace(0.0, 4.0, n)
+    cols = {"t": t, "x": 0.5 * t, "y": 0.1 * t ** 2, "theta": 0.2 * t,
+            "vx": 0.5 * np.sin(t) + 0.15, "vy": np.zeros(n), "omega": -0.9 * np.sin(t) ** 2 + 0.05,
+            "cmd_vx": np.full(n, 0.5), "cmd_vy": np.zeros(n), "cmd_omega": np.full(n, -0.5),
+            "slip": np.zeros(n), "icr_x": [None] * n, "icr_y": [None] * n}
+    for i, (ix, iy) in (icr or {}).items():
+        cols["icr_x"][i], cols["icr_y"][i] = ix, iy
+    for w in wheels:
+        cols[f"{w}.spin_cmd"] = np.full(n, 3.0)
+        cols[f"{w}.spin"] = 3.0 * np.tanh(t)
+    return cols
+
+
+def _vertices_under_legend(ax, axes=None):
+    """Display points of ``axes``' line vertices (finite ones) that fall inside ``ax``'s legend box."""
+    leg = ax.get_legend()
+    bb = leg.get_window_extent(ax.figure.canvas.get_renderer())
+    hits = 0
+    for a in axes or (ax,):
+        for ln in a.lines:
+            xy = np.column_stack([ln.get_xdata(), ln.get_ydata()]).astype(float)
+            xy = xy[np.all(np.isfinite(xy), axis=1)]
+            if len(xy):
+                d = a.transData.transform(xy)
+                hits += int(np.sum((d[:, 0] >= bb.x0) & (d[:, 0] <= bb.x1) & (d[:, 1] >= bb.y0) & (d[:, 1] <= bb.y1)))
+    return hits
+
+
+@pytest.mark.parametrize("scenario", ["ward-cart-square", "quad-steer-dogleg"])
+def test_legends_cover_no_data(tmp_path, scenario):
+    # the omega pulses of the square and vy of the dogleg used to run under the twist legend
+    run_scenario(load_scenario(SCENARIOS / f"{scenario}.yaml"), csv=tmp_path / "t.csv")
+    fig, _ = plot_traces(tmp_path / "t.csv", tmp_path / "t.png")
+    ax_path, _, ax_tw, ax_spin, ax_steer, ax_w = fig.axes
+    assert _vertices_under_legend(ax_tw, (ax_tw, ax_w)) == 0
+    for ax in (ax_path, ax_spin, ax_steer):
+        assert _vertices_under_legend(ax) == 0, ax.get_title()
+    # and the check can fail: the same legend moved to the middle of the panel covers data
+    ax_tw.get_legend().set_loc("center")
+    fig.canvas.draw()
+    assert _vertices_under_legend(ax_tw, (ax_tw, ax_w)) > 0
+
+
+def test_twist_axes_share_their_zero_line(tmp_path):
+    p = _write_trace(tmp_path / "h.csv", _hand_cols())
+    fig = figure([read_trace(p)])
+    fig.canvas.draw()
+    ax_tw, ax_w = fig.axes[2], fig.axes[5]
+    assert ax_w.bbox.bounds == ax_tw.bbox.bounds                         # the twin axis
+    y_ms = ax_tw.transData.transform((0.0, 0.0))[1]
+    y_rad = ax_w.transData.transform((0.0, 0.0))[1]
+    assert y_ms == pytest.approx(y_rad, abs=0.01)                         # one zero line, in pixels
+    lo, hi = ax_tw.get_ylim()
+    assert lo < 0 < hi                                                    # omega dips below zero
+    # both axes show all their data (vx from -0.23 to 0.65 m/s, omega from -0.85 to 0.05 rad/s)
+    for ax, name in ((ax_tw, "vx"), (ax_w, "omega")):
+        a, b = ax.get_ylim()
+        col = read_trace(p)[name]
+        assert a < col.min() and col.max() < b
+
+
+def test_legend_entries_start_end_and_commanded(tmp_path):
+    from matplotlib.lines import Line2D
+
+    p = _write_trace(tmp_path / "h.csv", _hand_cols())
+    fig = figure([read_trace(p)])
+    fig.canvas.draw()
+    leg = fig.axes[0].get_legend()
+    assert "start (circle), end (square)" in [t.get_text() for t in leg.get_texts()]
+    markers = {ln.get_marker() for ln in leg.findobj(Line2D) if ln.get_color() == PATH}
+    assert {"o", "s"} <= markers                                          # both markers drawn in the entry
+    tleg = fig.axes[2].get_legend()
+    labels = [t.get_text() for t in tleg.get_texts()]
+    assert "commanded (dashed)" in labels
+    handle = tleg.legend_handles[labels.index("commanded (dashed)")]
+    assert handle.get_linestyle() == "--"
+
+
+def test_compare_labels_icr_per_file_and_counts_rows(tmp_path):
+    a = _write_trace(tmp_path / "a.csv", _hand_cols(icr={3: (0.5, 0.5), 7: (400.0, 0.0)}))
+    b = _write_trace(tmp_path / "b.csv", _hand_cols(icr={3: (0.6, 0.5), 7: (400.0, 0.0), 8: (0.0, -300.0)}))
+    fig = figure([read_trace(a), read_trace(b)])
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert "ICR a.csv (1 row beyond the view)" in labels
+    assert "ICR b.csv (2 rows beyond the view)" in labels
+    single = [t.get_text() for t in figure([read_trace(a)]).axes[0].get_legend().get_texts()]
+    assert "ICR (1 row beyond the view)" in single
+
+
+def test_compare_of_another_robot_says_which_wheels_are_missing(cli, tmp_path):
+    a = _write_trace(tmp_path / "a.csv", _hand_cols(wheels=("left", "right")))
+    b = _write_trace(tmp_path / "b.csv", _hand_cols(wheels=("left", "drive", "ball")))
+    code, out, err = cli(["plot", a, "--compare", b, "-o", tmp_path / "c.png"])
+    assert code == 0, err
+    notes = [ln for ln in out.splitlines() if ln.startswith("note")]
+    assert len(notes) == 1 and "b.csv" in notes[0] and notes[0].endswith("drive, ball")
+    texts = [t.get_text() for t in figure([read_trace(a), read_trace(b)]).texts]
+    assert any("drive, ball" in t and "b.csv" in t for t in texts)
+    # the same robot twice: no note
+    code, out, _ = cli(["plot", a, "--compare", a, "-o", tmp_path / "d.png"])
+    assert code == 0 and "note" not in out
+    assert not [t for t in figure([read_trace(a), read_trace(a)]).texts if "not drawn" in t.get_text()]

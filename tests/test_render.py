@@ -305,3 +305,46 @@ def test_cli_import_loads_neither_pygame_nor_matplotlib():
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, capture_output=True, text=True,
                          timeout=60)
     assert out.stdout.strip() == "False False", out.stderr
+
+
+def test_path_shows_under_the_base_up_to_the_body_origin():
+    # field rover driving straight: all six wheels at one spin roll without slip (common practice:
+    # v = r * omega_wheel for a fixed wheel rolling along x), so the path is a straight line along x
+    rb = robot("field-rover")
+    sim = Simulator(rb, 0.01)
+    spins = {w.name: 3.0 for w in rb.wheels}
+    rd = Renderer(rb, (W, H))
+    row, cmd = None, {"wheels": spins}
+    for _ in range(150):
+        row = sim.step(**cmd)
+        cmd = {}
+        rd.observe(row)
+    assert row.slip == pytest.approx(0.0, abs=1e-12) and row.pose[1] == pytest.approx(0.0, abs=1e-12)
+    center, scale = (row.pose[0], 0.0), 200.0
+    rd.view = View((PANEL_W, 0, W - PANEL_W, H), center=center, scale=scale)
+    img = drawn(rd, row)
+    # 0.1 m and 0.3 m behind the body origin: inside the 1.0 m footprint, clear of the wheels (y = +-0.33)
+    for back in (0.1, 0.3):
+        u, v = hand_pixel(row.pose[0] - back, 0.0, center, scale)
+        assert tuple(img[int(round(v)), int(round(u))]) == PALETTE["path"], back
+    # beside the path, still inside the footprint, the fill shows
+    u, v = hand_pixel(row.pose[0] - 0.3, 0.15, center, scale)
+    assert tuple(img[int(round(v)), int(round(u))]) == PALETTE["body_fill"]
+
+
+def test_ball_wheels_are_grey_discs_unlike_the_origin_dot():
+    rb = robot("pallet-tug")
+    row = Simulator(rb, 0.01, start=(0.0, 0.0, 0.0)).step()
+    center, scale = (0.0, 0.0), 170.0                      # a ball (radius 25 mm) is ~4 px: drawn larger
+    rd = Renderer(rb, (W, H))
+    rd.view = View((PANEL_W, 0, W - PANEL_W, H), center=center, scale=scale)
+    img = drawn(rd, row)
+    u0, v0 = (int(round(c)) for c in hand_pixel(0.0, 0.0, center, scale))
+    assert tuple(img[v0, u0]) == PALETTE["ink"]                          # the body origin: black dot
+    for name in ("ball_left", "ball_right"):
+        b = rb.wheel(name)
+        u, v = (int(round(c)) for c in hand_pixel(b.x, b.y, center, scale))
+        assert tuple(img[v, u]) == PALETTE["ball"], name                 # grey centre, not black
+        assert tuple(img[v, u + render.BALL_MIN_PX - 3]) == PALETTE["ball"]
+        r = render.BALL_MIN_PX
+        assert all(colour_near(img, u + du, v + dv, PALETTE["ink"]) for du, dv in ((r, 0), (-r, 0), (0, r), (0, -r)))

@@ -14,11 +14,14 @@ def add_arguments(p):
 def run(args) -> int:
     from ..errors import require
     require("matplotlib", "trundle plot")
-    from ..plot import plot_traces
+    from ..plot import plot_traces, unshown_wheels
 
     _, traces = plot_traces(args.trace, args.output, compare=args.compare)
     for tr in traces:
         thin = f", 1 row in {tr.stride} plotted" if tr.stride > 1 else ""
         print(f"trace     {tr.path} ({tr.rows} rows{thin}); peak slip {tr.peak_slip:.4g} m/s at t={tr.peak_t:g} s")
+    dropped = unshown_wheels(traces)
+    if dropped:
+        print(f"note      wheels of {traces[1].label} not drawn (not in {traces[0].label}): {', '.join(dropped)}")
     print(f"plot      {args.output}")
     return 0
