@@ -24,13 +24,26 @@ Inverted, with the centres of gravity (means) of each direction:
     Ed = (R + b/2) / (R - b/2)                   D_right / D_left
     Eb = 90 deg / (90 deg - alpha)               b_actual / b_nominal
 
-We average the two estimates of alpha and of beta and require them to agree
-(their disagreement is second order plus random error), and take ``b`` in the
-Ed relation as the corrected wheelbase ``Eb b`` (the paper, from memory,
-writes b; the difference is second order).  Corrections, keeping the mean
-diameter: ``c_L = 2 / (Ed + 1)``, ``c_R = 2 / (1/Ed + 1)`` multiply the
-nominal radii, ``Eb`` the nominal wheelbase (symmetric about the axle
-midpoint).  The figure of merit is ``E_max = max(|cg_cw|, |cg_ccw|)``.
+We average the two estimates of alpha and of beta, and take ``b`` in the Ed
+relation as the corrected wheelbase ``Eb b`` (the paper, from memory, writes
+b; the difference is second order).  Corrections, keeping the mean diameter:
+``c_L = 2 / (Ed + 1)``, ``c_R = 2 / (1/Ed + 1)`` multiply the nominal radii,
+``Eb`` the nominal wheelbase (symmetric about the axle midpoint).  The figure
+of merit is ``E_max = max(|cg_cw|, |cg_ccw|)``.
+
+Consistency.  The two estimates of alpha (of beta) are not equal on a real
+base: the exact square (:func:`square_returns`: legs bent by beta, turns short
+by alpha) puts them apart by its higher-order terms, to second order (a sympy
+expansion) ``alpha_x - alpha_y = -(3 alpha^2 + 4 beta^2)`` and
+``beta_x - beta_y = -7 alpha beta``.  :func:`analyse` fits alpha and beta of the
+exact square to the sums (``alpha_x + alpha_y``, ``beta_x + beta_y``) and
+accepts a difference between 0 (the first-order relations) and the exact
+square's, widened by an allowance: ``K_SCATTER`` standard errors of the
+difference (from the scatter of the runs about their centres of gravity, with
+``RESOLUTION`` as the floor of each coordinate's error, the whole capped at
+``SCATTER_CAP``) plus ``MODEL_REL`` of the larger error angle for what the
+square leaves out (a measuring frame turned by 1 deg moves alpha_x - alpha_y
+by about 2 deg x beta, i.e. 3.5 % of beta).  Anything else is refused.
 
 Here the simulated test drives the square as exact wheel rotations computed
 from the *believed* geometry (what a controller closing the loop on its
@@ -57,8 +70,10 @@ from .yamlread import load_file
 
 MIN_RUNS = 3                  # per direction; Borenstein & Feng use 5
 DEFAULT_SIDE = 4.0            # m, as in the paper
-AGREE_REL = 0.1               # the two estimates of alpha (of beta) agree within this fraction,
-AGREE_ABS = 2e-4              # plus this many rad, twice their second-order difference and 3 standard errors
+K_SCATTER = 4.0               # standard errors of the x - y difference allowed for the scatter of the runs
+RESOLUTION = 1e-3             # m: floor of each centre-of-gravity coordinate's error (a return measured to 1 mm)
+SCATTER_CAP = math.radians(0.5)   # rad: the scatter allowance never exceeds this, however wide the runs scatter
+MODEL_REL = 0.05              # fraction of max(|alpha|, |beta|) allowed for effects the square model leaves out
 
 
 @dataclass(frozen=True)
@@ -112,9 +127,17 @@ class Umbmark:
     """The analysis of a square test (lengths m, angles rad).
 
     cg_cw, cg_ccw : (2,) centres of gravity; r_cw, r_ccw their distances from
-    0; e_max = max(r_cw, r_ccw).  alpha, beta and the two estimates of each
-    (``alpha_x`` from the x errors, ``alpha_y`` from the y errors, ...).
-    radius : R, inf when beta = 0.  Ed, Eb : the error factors.
+    0; e_max = max(r_cw, r_ccw).  alpha, beta: the averages of the two
+    estimates of each (``alpha_x`` from the x errors, ``alpha_y`` from the y
+    errors, ...), which give the corrections.  radius : R, inf when beta = 0.
+    Ed, Eb : the error factors.
+
+    The consistency check: ``alpha_fit``, ``beta_fit`` of the exact square
+    fitted to the sums; ``expect_alpha``, ``expect_beta`` its x - y
+    differences; ``scatter`` the standard error of an x - y difference (from
+    the runs, at least the ``RESOLUTION`` floor); ``allowance`` what the check
+    allows beyond [0, expect] (the same for alpha and beta); ``capped`` True
+    when the scatter part hit ``SCATTER_CAP``.
     """
 
     side: float
@@ -132,6 +155,25 @@ class Umbmark:
     radius: float
     Ed: float
     Eb: float
+    alpha_fit: float = 0.0
+    beta_fit: float = 0.0
+    expect_alpha: float = 0.0
+    expect_beta: float = 0.0
+    scatter: float = 0.0
+    allowance: float = 0.0
+    capped: bool = False
+
+    def model_tolerance(self) -> np.ndarray:
+        """(2,) m: how far (cw, ccw) the centres of gravity of the exact square with
+        the averaged alpha, beta (what the corrected file drives) may lie from the
+        measured ones when the data pass the consistency check: the fit's residual
+        is at most sqrt(2) L (|expect_alpha| + |expect_beta| + 2 allowance), plus the
+        shift from the fitted to the averaged angles."""
+        fit = square_returns(self.alpha_fit, self.beta_fit, self.side)
+        avg = square_returns(self.alpha, self.beta, self.side)
+        shift = np.hypot(*(avg - fit).T)
+        resid = math.sqrt(2) * self.side * (abs(self.expect_alpha) + abs(self.expect_beta) + 2 * self.allowance)
+        return resid + shift
 
 
 def centres(runs: SquareRuns) -> tuple:
@@ -140,10 +182,62 @@ def centres(runs: SquareRuns) -> tuple:
     return cw, ccw, max(float(np.hypot(*cw)), float(np.hypot(*ccw)))
 
 
+def square_returns(alpha: float, beta: float, side: float) -> np.ndarray:
+    """Return errors (2, 2) m, rows cw and ccw (start frame), of the exact square:
+    each of the four legs an arc of length ``side`` bending left by ``beta`` rad,
+    each 90 deg turn (in place) short by ``alpha`` rad.  To first order these are
+    Borenstein & Feng's ``x_cw = y_cw = -2L(alpha + beta)``, ``x_ccw = -y_ccw = 2L(beta - alpha)``."""
+    chord = side if beta == 0.0 else 2.0 * (side / beta) * math.sin(beta / 2.0)
+    out = np.zeros((2, 2))
+    for row, d in enumerate((-1, 1)):
+        th = 0.0
+        for _ in range(4):
+            out[row] += chord * np.array([math.cos(th + beta / 2), math.sin(th + beta / 2)])
+            th += beta + d * (math.pi / 2 - alpha)
+    return out
+
+
+def estimates(cg_cw, cg_ccw, side: float) -> np.ndarray:
+    """Borenstein & Feng's two estimates of each angle, (alpha_x, alpha_y, beta_x, beta_y) rad,
+    from the centres of gravity (2,) m of a square of side ``side`` m."""
+    (xcw, ycw), (xccw, yccw) = cg_cw, cg_ccw
+    return np.array([xcw + xccw, ycw - yccw, xcw - xccw, ycw + yccw]) / (-4.0 * side)
+
+
+def fit_square(sum_alpha: float, sum_beta: float, side: float) -> tuple | None:
+    """(alpha, beta) rad of the exact square whose estimates have these sums
+    (``alpha_x + alpha_y``, ``beta_x + beta_y``); Newton's method from half the
+    sums.  None when it does not converge (errors too large for the method)."""
+    target = np.array([sum_alpha, sum_beta])
+
+    def sums(p):
+        e = estimates(*square_returns(p[0], p[1], side), side)
+        return np.array([e[0] + e[1], e[2] + e[3]])
+
+    p, h = 0.5 * target, 1e-7
+    for _ in range(30):
+        J = np.column_stack([(sums(p + d) - sums(p - d)) / (2 * h) for d in (np.array([h, 0.0]), np.array([0.0, h]))])
+        try:
+            step = np.linalg.solve(J, target - sums(p))
+        except np.linalg.LinAlgError:
+            return None
+        p = p + step
+        if not np.all(np.isfinite(p)) or np.max(np.abs(p)) > math.pi / 4:
+            return None
+        if np.max(np.abs(step)) < 1e-13:
+            return float(p[0]), float(p[1])
+    return None
+
+
+def _deg(v: float) -> str:
+    return f"{math.degrees(v):.3g} deg"
+
+
 def analyse(runs: SquareRuns, b: float) -> Umbmark:
     """Error factors from a square test on a base of nominal wheelbase ``b`` (m).
 
-    Raises InputError for too few runs or data the two error types cannot explain.
+    Raises InputError for too few runs or data the two error types cannot explain
+    (see the module docstring, "Consistency").
     """
     for name, arr, line in (("cw", runs.cw, runs.lines[0]), ("ccw", runs.ccw, runs.lines[1])):
         if len(arr) < MIN_RUNS:
@@ -151,27 +245,47 @@ def analyse(runs: SquareRuns, b: float) -> Umbmark:
                              f"{name}: {len(arr)} run(s); the square test needs at least {MIN_RUNS} in each "
                              "direction (Borenstein & Feng use 5) to separate systematic from random error")
     L = runs.side
+    line = runs.lines[0] or runs.lines[1]
     (xcw, ycw), (xccw, yccw), e_max = centres(runs)
-    ax, ay = (xcw + xccw) / (-4 * L), (ycw - yccw) / (-4 * L)
-    bx, by = (xcw - xccw) / (-4 * L), (ycw + yccw) / (-4 * L)
-    se = np.sqrt(runs.cw.var(axis=0, ddof=1) / len(runs.cw) + runs.ccw.var(axis=0, ddof=1) / len(runs.ccw)) / (4 * L)
-    spread = 3.0 * math.hypot(se[0], se[1])
-    # second order (sympy expansion of the exact square): ax - ay = -(3 a^2 + 4 b^2), bx - by = -7 a b
-    a2, b2 = max(abs(ax), abs(ay)), max(abs(bx), abs(by))
-    second = {"alpha": 3 * a2 ** 2 + 4 * b2 ** 2, "beta": 7 * a2 * b2}
-    for what, u, v in (("alpha", ax, ay), ("beta", bx, by)):
-        if abs(u - v) > AGREE_REL * max(abs(u), abs(v)) + AGREE_ABS + 2 * second[what] + spread:
-            what = "alpha (turn error)" if what == "alpha" else "beta (leg curvature)"
-            raise InputError(runs.source, runs.lines[0] or runs.lines[1],
-                             f"inconsistent square test: {what} is {math.degrees(u):.4g} deg from the x errors "
-                             f"but {math.degrees(v):.4g} deg from the y errors; wheelbase and diameter errors "
-                             "cannot explain these returns. Check the frame (x along the first leg, y to the "
-                             "left), the sign (actual minus odometry), that cw and ccw are not swapped, and "
-                             "the side length")
+    ax, ay, bx, by = estimates((xcw, ycw), (xccw, yccw), L)
     alpha, beta = 0.5 * (ax + ay), 0.5 * (bx + by)
     if abs(alpha) >= math.pi / 4:
-        raise InputError(runs.source, runs.lines[0], f"inconsistent square test: turns off by "
+        raise InputError(runs.source, line, f"inconsistent square test: turns off by "
                          f"{math.degrees(alpha):.3g} deg each; the method needs small errors")
+    fit = fit_square(ax + ay, bx + by, L)
+    if fit is None:
+        raise InputError(runs.source, line, f"inconsistent square test: no square with turns short by a fixed "
+                         f"angle and legs bent by a fixed angle has these centres of gravity (alpha about "
+                         f"{_deg(alpha)}, beta about {_deg(beta)}); the method needs small errors")
+    e = estimates(*square_returns(*fit, L), L)
+    expect = {"alpha": e[0] - e[1], "beta": e[2] - e[3]}
+    # standard error of an x - y difference: four centre-of-gravity coordinates, each with
+    # its own standard error (at least RESOLUTION), over 4L
+    se2 = np.concatenate([runs.cw.var(axis=0, ddof=1) / len(runs.cw), runs.ccw.var(axis=0, ddof=1) / len(runs.ccw)])
+    scatter = float(np.sqrt(np.sum(np.maximum(se2, RESOLUTION ** 2)))) / (4 * L)
+    noise = K_SCATTER * scatter
+    capped = noise > SCATTER_CAP
+    allowance = min(noise, SCATTER_CAP) + MODEL_REL * max(abs(fit[0]), abs(fit[1]))
+    bad = []
+    for what, u, v in (("alpha", ax, ay), ("beta", bx, by)):
+        lo, hi = min(0.0, expect[what]), max(0.0, expect[what])
+        outside = max(lo - (u - v), (u - v) - hi, 0.0)
+        if outside > allowance:
+            label = "alpha (turn error)" if what == "alpha" else "beta (leg curvature)"
+            bad.append(f"{label} is {math.degrees(u):.4g} deg from the x errors but {math.degrees(v):.4g} deg "
+                       f"from the y errors (x - y = {math.degrees(u - v):+.3g} deg); at these errors the exact "
+                       f"square gives x - y between {math.degrees(lo):.3g} and {math.degrees(hi):.3g} deg, and "
+                       f"the data are {_deg(outside)} outside that, more than the {_deg(allowance)} allowed")
+    if bad:
+        why = (f"the allowance for scatter is capped at {_deg(SCATTER_CAP)}: the runs scatter widely "
+               f"(standard error of x - y {_deg(scatter)}); more runs narrow it" if capped else
+               f"standard error of x - y {_deg(scatter)} from the scatter of the runs, "
+               f"{K_SCATTER:g} times that plus {MODEL_REL:.0%} of the larger angle allowed")
+        raise InputError(runs.source, line,
+                         "inconsistent square test: " + "; and ".join(bad) + f" ({why}). Wheelbase and diameter "
+                         "errors cannot explain these returns. Check the frame (x along the first leg, y to the "
+                         "left), the sign (actual minus odometry), that cw and ccw are not swapped, and the side "
+                         "length")
     Eb = (math.pi / 2) / (math.pi / 2 - alpha)
     bb = Eb * b
     if beta == 0.0:
@@ -179,11 +293,12 @@ def analyse(runs: SquareRuns, b: float) -> Umbmark:
     else:
         R = (L / 2) / math.sin(beta / 2)
         if abs(R) <= bb / 2:
-            raise InputError(runs.source, runs.lines[0], f"inconsistent square test: the legs would bend on a "
+            raise InputError(runs.source, line, f"inconsistent square test: the legs would bend on a "
                              f"radius of {abs(R):.3g} m, inside the wheelbase; the method needs small errors")
         Ed = (R + bb / 2) / (R - bb / 2)
     return Umbmark(L, np.array([xcw, ycw]), np.array([xccw, yccw]), float(np.hypot(xcw, ycw)),
-                   float(np.hypot(xccw, yccw)), e_max, alpha, beta, ax, ay, bx, by, R, Ed, Eb)
+                   float(np.hypot(xccw, yccw)), e_max, alpha, beta, ax, ay, bx, by, R, Ed, Eb,
+                   fit[0], fit[1], expect["alpha"], expect["beta"], scatter, allowance, capped)
 
 
 def corrected_robot(robot: Robot, dd: DiffDrive, Ed: float, Eb: float) -> Robot:

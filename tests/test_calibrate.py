@@ -12,6 +12,7 @@ import yaml
 from sim import calibrate as C
 from sim import geomfit as G
 from sim.cli import main
+from sim.errors import InputError
 from sim.robot import load_robot
 from sim.runner import run_scenario
 from sim.scenario import scenario_from_data
@@ -110,6 +111,14 @@ def test_cli_simulated_square_test_writes_a_better_robot_file(tmp_path, capsys):
     assert factor >= 10
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert not list(tmp_path.glob("*.part"))
+    # the four clouds in Okabe-Ito colours (README "Colours and symbols"), none in matplotlib's default cycle
+    from matplotlib.image import imread
+    rgb = (imread(png)[:, :, :3] * 255).round().astype(int)
+    count = lambda h: int(np.all(rgb == [int(h[i:i + 2], 16) for i in (0, 2, 4)], axis=2).sum())
+    for okabe_ito in ("0072B2", "D55E00", "56B4E9", "E69F00"):
+        assert count(okabe_ito) > 20, okabe_ito
+    for default in ("1f77b4", "d62728", "17becf", "ff7f0e"):
+        assert count(default) == 0, default
 
 
 def test_cli_measured_returns_yaml_and_csv_agree(tmp_path, capsys):
@@ -136,6 +145,123 @@ def test_cli_measured_returns_yaml_and_csv_agree(tmp_path, capsys):
     Eb = 90 / (90 - math.degrees(alpha))
     assert C.diff_drive(fixed).b == pytest.approx(0.44 * Eb, rel=2e-3)
     assert fixed.wheel("right").radius > fixed.wheel("left").radius    # legs bent left
+
+
+def _sympy_square_differences():
+    """x - y differences of the two alpha and the two beta estimates of the exact square,
+    to second order, by sympy: each leg an arc of length 1 bending left by beta, each 90 deg
+    turn short by alpha, composed as homogeneous SE(2) matrices truncated at second order
+    (an independent derivation; common practice)."""
+    import sympy as sp
+    a, b, e = sp.symbols("alpha beta epsilon", real=True)
+
+    def trunc(x):
+        return sum((t for t in sp.Add.make_args(sp.expand(x)) if sp.degree(t, e) < 3), sp.Integer(0))
+
+    T = lambda c, s_, x, y: sp.Matrix([[c, -s_, x], [s_, c, y], [0, 0, 1]])
+    A, B = e * a, e * b
+    leg = T(1 - B ** 2 / 2, B, 1 - B ** 2 / 6, B / 2)        # (sin B / B, (1 - cos B) / B) to 2nd order
+    ends = []
+    for d in (-1, 1):
+        M = sp.eye(3)
+        for _ in range(4):                                  # cos(90deg - A) = sin A, sin = cos A
+            M = (M * leg * T(A, d * (1 - A ** 2 / 2), 0, 0)).applyfunc(trunc)
+        ends.append((M[0, 2], M[1, 2]))
+    (xcw, ycw), (xccw, yccw) = ends
+    da = sp.expand(((xcw + xccw) - (ycw - yccw)) / -4).subs(e, 1)
+    db = sp.expand(((xcw - xccw) - (ycw + yccw)) / -4).subs(e, 1)
+    return sp.lambdify((a, b), da), sp.lambdify((a, b), db), sp.expand(da + 3 * a ** 2 + 4 * b ** 2), \
+        sp.expand(db + 7 * a * b)
+
+
+def test_exact_square_agrees_with_first_and_second_order_relations():
+    da, db, rest_a, rest_b = _sympy_square_differences()
+    assert rest_a == 0 and rest_b == 0        # the README's -(3 alpha^2 + 4 beta^2) and -7 alpha beta
+    for alpha, beta in ((0.004, 0.007), (-0.006, 0.003), (0.005, -0.008)):
+        est = C.estimates(*C.square_returns(alpha, beta, L), L)
+        # Borenstein & Feng's first-order relations (from memory): each estimate is alpha (beta),
+        # to second order (the sympy terms are at most 5 max(|alpha|, |beta|)^2 here)
+        tol = 5 * max(abs(alpha), abs(beta)) ** 2
+        assert est[:2] == pytest.approx([alpha, alpha], abs=tol) and est[2:] == pytest.approx([beta, beta], abs=tol)
+        # the second-order differences: agreement to third order (|angle| <= 0.008: ~1e-6 rad)
+        assert est[0] - est[1] == pytest.approx(da(alpha, beta), abs=3e-6)
+        assert est[2] - est[3] == pytest.approx(db(alpha, beta), abs=3e-6)
+        assert abs(da(alpha, beta)) > 1e-4 or abs(db(alpha, beta)) > 1e-4
+
+
+def _from_estimates(ax, ay, bx, by):
+    """Centres of gravity (cw, ccw) with these estimates (rad), inverting the README's relations."""
+    return (np.array([-2 * L * (ax + bx), -2 * L * (ay + by)]), np.array([-2 * L * (ax - bx), -2 * L * (by - ay)]))
+
+
+def _scatter(rng, n, sigma):
+    """n return-error offsets (n, 2) m of standard deviation sigma with mean exactly 0."""
+    off = rng.normal(0, sigma, (n, 2))
+    return off - off.mean(axis=0)
+
+
+@pytest.mark.parametrize("sigma", [0.01, 0.06])
+def test_made_up_inconsistent_file_is_refused(tmp_path, capsys, sigma):
+    # the new-user file: alpha -2.5 deg from the x errors but -3.9 deg from the y errors (beta
+    # 1.07 vs 2.58 deg); at 60 mm of scatter per run the allowance for scatter is capped
+    cw, ccw = _from_estimates(*map(math.radians, (-2.5, -3.9, 1.07, 2.58)))
+    rng = np.random.default_rng(7)
+    src = tmp_path / "made-up.yaml"
+    src.write_text(_runs_yaml(cw + _scatter(rng, 5, sigma), ccw + _scatter(rng, 5, sigma)))
+    out = tmp_path / "fixed.yaml"
+    assert main(["calibrate", CART, "--measured", str(src), "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith(f"{src}:2: inconsistent square test: alpha (turn error) is -2.5 deg from the x errors "
+                          "but -3.9 deg from the y errors (x - y = +1.4 deg)")
+    assert "beta (leg curvature) is 1.07 deg from the x errors but 2.58 deg from the y errors" in err
+    assert ("capped at 0.5 deg" in err) == (sigma > 0.05) and "Traceback" not in err
+    assert not out.exists() and not list(tmp_path.glob("*.part"))
+
+
+def test_consistent_file_from_borenstein_feng_relations_is_accepted(tmp_path, capsys):
+    # Borenstein & Feng's first-order relations (from memory, bf_returns) for a turn error of
+    # 1 deg and legs bending right by 1.5 deg, 15 mm of scatter per run (5 runs each way)
+    alpha, beta = math.radians(1.0), math.radians(-1.5)
+    cw, ccw = bf_returns(alpha, beta)
+    rng = np.random.default_rng(3)
+    src = tmp_path / "measured.yaml"
+    src.write_text(_runs_yaml(cw + rng.normal(0, 0.015, (5, 2)), ccw + rng.normal(0, 0.015, (5, 2))))
+    out = tmp_path / "fixed.yaml"
+    assert main(["calibrate", CART, "--measured", str(src), "-o", str(out)]) == 0
+    text = capsys.readouterr().out
+    fixed = load_robot(out)
+    # Eb = 90 deg / (90 deg - alpha); Ed = (R + b/2) / (R - b/2), R = (L/2) / sin(beta/2) (from
+    # memory of the paper); the scatter moves alpha and beta by about 0.03 deg
+    Eb = 90 / (90 - 1.0)
+    R, b = (L / 2) / math.sin(beta / 2), Eb * 0.44
+    assert C.diff_drive(fixed).b / 0.44 == pytest.approx(Eb, abs=1.5e-3)
+    assert fixed.wheel("right").radius / fixed.wheel("left").radius == pytest.approx((R + b / 2) / (R - b / 2),
+                                                                                      abs=3e-4)
+    check = text.split("model check")[1].split("\n")[0]
+    gap = float(check.split("within")[1].split("mm")[0])
+    allowed = [float(check.split(k)[1].split()[0].rstrip(",")) for k in ("allowed cw", "ccw")]
+    e_max = float(text.split("E_max")[1].split("mm")[0])
+    assert gap <= min(allowed) and max(allowed) < e_max / 3
+
+
+def test_consistency_check_separates_scatter_from_disagreement():
+    # 200 noisy square tests each: first-order returns (Borenstein & Feng, from memory) with
+    # 10 mm of scatter are all accepted; the same with alpha_x - alpha_y pushed to +0.6 deg
+    # (the exact square puts it at or below 0 here) are all refused
+    rng = np.random.default_rng(11)
+    accepted = refused = 0
+    for _ in range(200):
+        alpha, beta = np.radians(rng.uniform(-2, 2, 2))
+        cw, ccw = bf_returns(alpha, beta)
+        noise = rng.normal(0, 0.01, (2, 5, 2))
+        C.analyse(C.SquareRuns(L, cw + noise[0], ccw + noise[1]), 0.44)
+        accepted += 1
+        d = math.radians(0.3)
+        bcw, bccw = _from_estimates(alpha + d, alpha - d, beta, beta)
+        with pytest.raises(InputError, match="alpha .turn error. is"):
+            C.analyse(C.SquareRuns(L, bcw + noise[0], bccw + noise[1]), 0.44)
+        refused += 1
+    assert accepted == refused == 200
 
 
 # -- bad input --------------------------------------------------------------------

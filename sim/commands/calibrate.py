@@ -57,6 +57,8 @@ def _cg_lines(label, runs):
 
 
 def run(args) -> int:
+    import numpy as np
+
     from ..errors import InputError
     from ..robot import load_robot
 
@@ -91,6 +93,10 @@ def run(args) -> int:
              f"y: {math.degrees(u.alpha_y):.4f})",
              f"beta        {math.degrees(u.beta):.4f} deg per leg (x: {math.degrees(u.beta_x):.4f}, "
              f"y: {math.degrees(u.beta_y):.4f});  R = {u.radius:.4g} m",
+             f"agreement   x - y: alpha {math.degrees(u.alpha_x - u.alpha_y):+.4f} deg (exact square "
+             f"{math.degrees(u.expect_alpha):+.4f}), beta {math.degrees(u.beta_x - u.beta_y):+.4f} deg "
+             f"({math.degrees(u.expect_beta):+.4f}); allowed {math.degrees(u.allowance):.4f} deg beyond "
+             f"(standard error {math.degrees(u.scatter):.4f} deg{', scatter allowance capped' if u.capped else ''})",
              f"Ed          {u.Ed:.6f}  (D_right / D_left)",
              f"Eb          {u.Eb:.6f}  (b_actual / b_nominal)"]
     if args.true_robot:
@@ -110,8 +116,17 @@ def run(args) -> int:
         model = C.square_test(_with_encoders(fixed, dd), _with_encoders(robot, dd), C.MIN_RUNS, before.side, **sim)
         cw, ccw, _ = C.centres(model)
         m0, m1, _ = C.centres(before)
-        gap = max(float(math.hypot(*(cw - m0))), float(math.hypot(*(ccw - m1))))
-        lines.append(f"model check the fitted Ed, Eb reproduce the measured centres of gravity within {_mm(gap).strip()}")
+        gaps = np.array([math.hypot(*(cw - m0)), math.hypot(*(ccw - m1))])
+        tol = u.model_tolerance()
+        if np.any(gaps > tol):
+            k = int(np.argmax(gaps - tol))
+            raise InputError(before.source, before.lines[k] or before.lines[0],
+                             f"model check failed: driven with the fitted Ed {u.Ed:.6f}, Eb {u.Eb:.6f}, the square "
+                             f"returns {gaps[k] * 1e3:.1f} mm from the measured {('cw', 'ccw')[k]} centre of gravity; "
+                             f"the scatter of the runs and the higher-order terms allow {tol[k] * 1e3:.1f} mm. "
+                             "Wheelbase and diameter errors cannot explain these returns")
+        lines.append(f"model check the fitted Ed, Eb reproduce the measured centres of gravity within "
+                     f"{gaps.max() * 1e3:.2f} mm (allowed cw {tol[0] * 1e3:.2f}, ccw {tol[1] * 1e3:.2f} mm)")
         lines.append("            drive the square again with the corrected file to confirm the improvement")
     C.write_text(out, C.robot_yaml(fixed, (
         f"{robot.name}: odometry geometry corrected by trundle calibrate from {args.robot}",
