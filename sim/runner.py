@@ -221,16 +221,6 @@ def _chunked_blocks(scen, odo):
             yield block, (odo.update_block(block) if odo else None)
 
 
-LONG_TRACE = 300_000  # rows: from here on the trace is formatted in worker processes
-
-
-def trace_workers(scen: Scenario, every: int = 1) -> int:
-    """Worker processes for formatting the trace: 0 for short runs or a single core."""
-    import os
-    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
-    return min(2, cores) if cores > 1 and scen.steps // max(1, every) >= LONG_TRACE else 0
-
-
 def use_chunked(scen: Scenario, on_row=None) -> bool:
     """Whether :func:`run_scenario` takes the chunked engine (``engine='auto'``)."""
     if on_row is not None or not supported(scen.robot):
@@ -242,7 +232,7 @@ def use_chunked(scen: Scenario, on_row=None) -> bool:
 
 
 def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: bool = False,
-                 on_row=None, engine: str = "auto", workers: int = 0) -> RunResult:
+                 on_row=None, engine: str = "auto") -> RunResult:
     """Run ``scen`` to the end.
 
     Parameters
@@ -260,11 +250,6 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         reference engine.
     engine : ``auto`` | ``reference`` | ``chunked``
         ``auto`` takes the chunked engine whenever it applies.
-    workers : int
-        Processes that format the CSV while this one simulates (see
-        :func:`trace_workers`).  They are started the ``forkserver`` way, so a
-        script passing ``workers > 0`` needs the usual
-        ``if __name__ == "__main__":`` guard.
     """
     odo = None
     if scen.odometry is not None:
@@ -274,7 +259,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     blocks = _chunked_blocks(scen, odo) if fast else _reference_blocks(scen, odo, on_row)
     extra_cols = tuple(odo.columns) if odo else ()
     header = columns(scen.robot, extra_cols)
-    writer = TraceWriter(csv, header, workers=workers) if csv else None
+    writer = TraceWriter(csv, header) if csv else None
     kept = [] if keep else None
     res = RunResult(scen)
     checks = _Checks(scen)

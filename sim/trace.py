@@ -47,13 +47,11 @@ class TraceWriter:
 
     ``close()`` renames the finished file into place; ``abort()`` removes it
     (used when a run fails for a reason that is not an interruption).  Rows
-    are formatted in pieces of at most ``block`` rows, written in order;
-    memory stays bounded by a few pieces.  With ``workers`` > 0 the pieces are
-    formatted in that many worker processes while the caller goes on
-    simulating (worth it for long runs on a machine with spare cores).
+    are formatted in pieces of at most ``block`` rows (:mod:`sim.floatfmt`)
+    and written in order, so memory stays bounded by one piece.
     """
 
-    def __init__(self, path, header, block: int = 8192, workers: int = 0):
+    def __init__(self, path, header, block: int = 8192):
         self.path = os.fspath(path)
         self.part = self.path + ".part"
         self.block = block
@@ -64,13 +62,6 @@ class TraceWriter:
             from .errors import InputError
             raise InputError(self.path, None, f"cannot write the trace: {exc.strerror}") from None
         self._fh.write((",".join(header) + "\r\n").encode("utf-8"))
-        self._pool = None
-        if workers > 0:
-            from concurrent.futures import ProcessPoolExecutor
-            from .batch import pool_context
-            self._pool = ProcessPoolExecutor(max_workers=workers, mp_context=pool_context())
-        self._pending = []
-        self._depth = 2 * workers + 1
         self.rows = 0
 
     def write(self, values) -> None:
@@ -91,19 +82,12 @@ class TraceWriter:
                 self._submit(block[i:i + self.block])
             return
         self.rows += len(block)
-        if self._pool is None:
-            self._fh.write(format_block(block))
-            return
-        self._pending.append(self._pool.submit(format_block, block))
-        while len(self._pending) > self._depth:
-            self._fh.write(self._pending.pop(0).result())
+        self._fh.write(format_block(block))
 
     def flush(self) -> None:
         if self._buf:
             self._submit(np.asarray(self._buf))
             self._buf = []
-        while self._pending:
-            self._fh.write(self._pending.pop(0).result())
         self._fh.flush()
 
     def close(self) -> None:
@@ -112,18 +96,11 @@ class TraceWriter:
         self.flush()
         self._fh.close()
         self._fh = None
-        if self._pool:
-            self._pool.shutdown()
         os.replace(self.part, self.path)
 
     def abort(self) -> None:
         if self._fh is None:
             return
-        for f in self._pending:
-            f.cancel()
-        self._pending = []
-        if self._pool:
-            self._pool.shutdown()
         self._fh.close()
         self._fh = None
         try:

@@ -48,9 +48,7 @@ def run(args) -> int:
             if not supported(scen.robot):
                 raise InputError("--engine", None, "the chunked engine does not handle driven castors; "
                                  "use --engine auto or reference")
-        from ..runner import trace_workers
-        res = run_scenario(scen, csv=args.csv, every=args.every, engine=args.engine,
-                           workers=trace_workers(scen, args.every) if args.csv else 0)
+        res = run_scenario(scen, csv=args.csv, every=args.every, engine=args.engine)
     print(summary_text(res))
     if args.png:
         print(f"picture   {args.png}")
