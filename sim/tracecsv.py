@@ -234,10 +234,8 @@ def floats(cells, where):
 # -- reading whole blocks of cells with numpy -----------------------------------
 _W = 24                                        # widest cell read by Cells: '-1.2345678901234567e-308'
 _U = np.uint64
-_ONES = _U(0xFFFFFFFFFFFFFFFF)
-_B01, _B1E, _B1F, _B20 = _U(0x0101010101010101), _U(0x1E1E1E1E1E1E1E1E), _U(0x1F1F1F1F1F1F1F1F), _U(0x2020202020202020)
-_B30, _B75, _B76 = _U(0x3030303030303030), _U(0x7575757575757575), _U(0x7676767676767676)
-_B7F, _B80 = _U(0x7F7F7F7F7F7F7F7F), _U(0x8080808080808080)
+# the same byte in all eight bytes of a word
+_B01, _B30, _B76, _B80 = (_U(0x0101010101010101 * b) for b in (0x01, 0x30, 0x76, 0x80))
 
 
 def _window_masks():
@@ -271,11 +269,6 @@ _MUL = np.concatenate([np.ones(22), 10.0 ** np.arange(23)])        # 10**q for q
 _DIV = np.concatenate([10.0 ** np.arange(22, 0, -1), np.ones(23)])  # 10**-q for q = -22..-1, else 1
 _QMIN, _QMAX = -300, 300
 _DD = None                                      # 10**q as double-doubles, q in [_QMIN, _QMAX]
-
-
-def _zero_bytes(y):
-    """0x80 in every byte of ``y`` (uint64 words) that is zero, else 0 (exact, no borrows)."""
-    return ~(((y & _B7F) + _B7F) | y | _B7F)
 
 
 def _count_bytes(flags):
@@ -423,10 +416,13 @@ class Cells:
             return None
         return cls.located(data, ncols, sep)
 
-    def word(self, i, k, L=None):
-        """Word ``k`` (0..2) of the windows of cells ``i`` (the last 24 bytes of longer cells): uint64, shape (len(i),)."""
-        L = self.lens[i] if L is None else L
-        return self._views()[0][self.ends[i] + 8 * k] & _MASK_COLS[k][np.minimum(L, _W)]   # (np.take would copy)
+    def word(self, i, k):
+        """Word ``k`` (0..2) of the windows of cells ``i`` (of longer cells: their last 24 bytes).
+
+        uint64, shape (len(i),).
+        """
+        L = np.minimum(self.lens[i], _W)
+        return self._views()[0][self.ends[i] + 8 * k] & _MASK_COLS[k][L]   # (np.take would copy the view)
 
     def differ(self, other, i, j):
         """Bool array: cell ``i`` here differs in bytes from cell ``j`` of ``other`` (flat indices, shape (n,))."""

@@ -17,8 +17,12 @@ Rules
   divergence (deviation ``inf``).
 - Within tolerance means ``deviation <= tolerance`` in every compared cell.
 - Speed: rows whose bytes are identical in both files are not parsed, and in
-  rows that differ only the cells that differ are turned into numbers.
-  Identical rows are still checked for cell count and allowed characters.
+  rows that differ only the cells that differ are turned into numbers, a
+  block at a time with numpy (:class:`~sim.tracecsv.Cells`; the same doubles
+  as Python's ``float``).  Anything that reading declines (quoted cells,
+  ``nan`` text, a cell that is not a number) goes cell by cell through
+  :func:`~sim.tracecsv.floats`, which names the ``file:line``.  Identical
+  rows are still checked for cell count and allowed characters.
 
 Bad input (missing file, no header, no ``t`` column, a row with the wrong
 number of cells, a cell that is not a number) raises
@@ -331,12 +335,10 @@ class _Compare:
         ncomp = len(self.names)
         if blank.any():
             self.blanks += np.bincount(c[blank], minlength=ncomp)
-        D = np.zeros((k, ncomp))
-        D[r, c] = d
-        VA = np.full((k, ncomp), np.nan)
-        VB = np.full((k, ncomp), np.nan)
-        VA[r, c] = va
-        VB[r, c] = vb
+        D = np.zeros((ncomp, k))                   # deviations, column by column (0 where the bytes agree)
+        D[c, r] = d
+        at = np.empty((ncomp, k), np.int64)         # where D[m, j] came from in va, vb (cells that differ)
+        at[c, r] = np.arange(r.size)
         if self.step is None and t_ne.size:
             tA, tB = t_pairs()
             dt, _, _ = _deviation(tA, tB, np.zeros(t_ne.size, bool))
@@ -345,22 +347,22 @@ class _Compare:
                 j = bad[0]
                 self.step = (row0 + idx[t_ne[j]], float(tA[j]), float(tB[j]))
         if self.first is None:
-            exceed = D > self.tol
-            hit = np.flatnonzero(exceed.any(axis=1))
+            exceed = D > self.tol[:, None]
+            hit = np.flatnonzero(exceed.any(axis=0))
             if hit.size:
                 j = hit[0]
-                cols = [(self.names[m], float(VA[j, m]), float(VB[j, m]), float(D[j, m]), float(self.tol[m]))
-                        for m in np.flatnonzero(exceed[j])]
+                cols = [(self.names[m], float(va[at[m, j]]), float(vb[at[m, j]]), float(D[m, j]),
+                         float(self.tol[m])) for m in np.flatnonzero(exceed[:, j])]
                 self.first = Divergence(row0 + idx[j], time_a(j), time_b(j), cols)
-        top = D.argmax(axis=0)
-        val = D[top, np.arange(ncomp)]
-        for m in np.flatnonzero(val > self.max_dev):
+        top = D.argmax(axis=1)
+        val = D[np.arange(ncomp), top]
+        for m in np.flatnonzero(val > self.max_dev):    # (a deviation > 0: that cell differs, at[] is set)
             j = int(top[m])
             self.max_dev[m] = val[m]
             self.max_row[m] = row0 + idx[j]
             self.max_t[m] = time_a(j)
-            self.max_a[m] = VA[j, m]
-            self.max_b[m] = VB[j, m]
+            self.max_a[m] = va[at[m, j]]
+            self.max_b[m] = vb[at[m, j]]
 
     def _differing_fast(self, la, lb, idx, cells_a, cells_b, line_a, line_b):
         """The differing compared cells of rows ``idx``, read by :class:`Cells`; None if it declines.
@@ -719,10 +721,10 @@ def _report(plan: _Plan, states) -> DiffReport:
                          (max_a, "max_a"), (max_b, "max_b")):
             arr[better] = st[new][better]
     it_a, it_b = plan.columns_a.index("t"), plan.columns_b.index("t")
-    rep.step_a = _step(head_a[:2], it_a)
-    rep.step_b = _step(head_b[:2], it_b)
-    rep.final_a = _final(last_a, plan.columns_a)
-    rep.final_b = _final(last_b, plan.columns_b)
+    rep.step_a = _step(head_a[:2], it_a, plan.path_a, plan.columns_a)
+    rep.step_b = _step(head_b[:2], it_b, plan.path_b, plan.columns_b)
+    rep.final_a = _final(last_a, plan.columns_a, plan.path_a, rep.rows_a + 1)
+    rep.final_b = _final(last_b, plan.columns_b, plan.path_b, rep.rows_b + 1)
     for j, n in enumerate(plan.names):
         cd = ColumnDiff(n, float(plan.tols[j]), is_heading(n))
         if max_row[j] >= 0:
@@ -734,21 +736,28 @@ def _report(plan: _Plan, states) -> DiffReport:
     return rep
 
 
-def _values(line: bytes) -> np.ndarray:
-    """All cells of one (validated) line as floats, nan for blank; shape (ncols,)."""
-    return np.array([float(c) if c else np.nan for c in line.split(b",")])
+def _values(line: bytes, path, ln, columns) -> np.ndarray:
+    """All cells of data line ``ln`` of ``path`` as floats, nan for blank; shape (ncols,)."""
+    out = []
+    for name, c in zip(columns, line.split(b",")):
+        try:
+            out.append(float(c) if c else np.nan)
+        except ValueError:                      # (a row equal in both traces was never read as numbers)
+            raise InputError(path, ln, f"column '{name}': expected a number or a blank cell, "
+                                       f"got '{c.decode('ascii', 'replace')}'") from None
+    return np.array(out)
 
 
-def _step(head, it):
+def _step(head, it, path, columns):
     if len(head) < 2:
         return None
-    t0, t1 = (_values(line)[it] for line in head)
+    t0, t1 = (_values(line, path, ln, columns)[it] for ln, line in enumerate(head, start=2))
     return float(t1 - t0) if math.isfinite(t1 - t0) else None
 
 
-def _final(last, columns):
+def _final(last, columns, path, ln):
     if last is None or not all(p in columns for p in POSE):
         return None
-    v = _values(last)
+    v = _values(last, path, ln, columns)
     pose = tuple(float(v[columns.index(p)]) for p in POSE)
     return pose if all(math.isfinite(p) for p in pose) else None

@@ -388,3 +388,111 @@ def test_parallel_segments_give_the_same_report(axle_pair, tmp_path, monkeypatch
     with pytest.raises(InputError) as exc:
         compare(a, bad, jobs=2)
     assert (exc.value.source, exc.value.line) == (str(bad), 901)
+
+
+# -- reading cells as numbers: the whole-block reading against Python's float ----------------
+from hypothesis import given, settings, strategies as st  # noqa: E402
+
+from sim.tracecsv import Cells  # noqa: E402
+
+_DIGITS = st.text("0123456789", max_size=9)
+
+
+@st.composite
+def number_texts(draw):
+    """Decimal texts of the CSV number syntax, in the shapes people and writers use."""
+    kind = draw(st.integers(0, 3))
+    if kind == 0:                                        # what repr writes
+        return repr(draw(st.floats(allow_nan=False, allow_infinity=False)))
+    if kind == 1:
+        return repr(draw(st.floats(-1e3, 1e3, allow_nan=False)) * 10.0 ** draw(st.integers(-40, 40)))
+    whole, frac = draw(_DIGITS), draw(_DIGITS)
+    if not whole and not frac:
+        whole = "0"
+    text = draw(st.sampled_from(["", "-", "+"])) + whole + (("." + frac) if frac or draw(st.booleans()) else "")
+    if kind == 3:
+        text += draw(st.sampled_from("eE")) + draw(st.sampled_from(["", "-", "+"])) + str(draw(st.integers(0, 400)))
+    return text
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.lists(st.one_of(number_texts(), st.just("")), min_size=3, max_size=3), min_size=1, max_size=40))
+def test_block_reading_gives_exactly_pythons_float(rows):
+    """Reference: Python's float(), which rounds correctly to the nearest double (IEEE 754; common practice)."""
+    rows = [[c for c in r] for r in rows]
+    block = Cells.of([",".join(r).encode() for r in rows], 3)
+    assert block is not None
+    flat = [c for r in rows for c in r]
+    got = block.values(np.arange(len(flat)))
+    long_cell = any(len(c) > 24 for c in flat)
+    if long_cell:
+        assert got is None                               # declined: the per-cell reading takes over
+        return
+    want = np.array([float(c) if c else math.nan for c in flat])
+    assert np.array_equal(got, want, equal_nan=True)
+    assert np.array_equal(np.signbit(got), np.signbit(want))        # -0.0 stays negative
+
+
+@pytest.mark.parametrize("text", ["-", ".", "+.", "1e", "1e+", "e5", "1.2.3", "1e5e5", "1-2", "--1",
+                                  "1e5.0", ".e1", "1+", "1e--5", "+e5", "1.5e+-3", "1ee5"])
+def test_block_reading_declines_what_float_rejects(text):
+    with pytest.raises(ValueError):
+        float(text)
+    block = Cells.of([b"0.5," + text.encode() + b",2"], 3)
+    assert block is not None and block.values(np.arange(3)) is None
+    assert block.values(np.array([0, 2])).tolist() == [0.5, 2.0]           # its neighbours still read
+
+
+def test_whole_block_and_cell_by_cell_readings_agree(tmp_path, monkeypatch):
+    """Blanks, quotes, signs, exponents, long and tiny numbers, CR LF and LF: one report either way.
+
+    Reference for the deviations: the csv module and float(), cell by cell (as above).
+    """
+    import sim.tracecsv as tc
+
+    header = ["t", "x", "y", "theta", "icr_x"]
+    cells_a = ["0.5", "-0.0", "1e-05", "", "+2.5", "1.5E+3", ".25", "7.", "123456789012345678901234",
+               "5e-324", "1.7976931348623157e308", "2.2250738585072014e-308", "0.1", "-3.25e-7"]
+    cells_b = ["0.5000000000000001", "0.0", "1.0000000000000001e-05", "3.5", "2.5", "1500", "0.25", "7",
+               "123456789012345678901235", "1e-323", "1.7976931348623155e308", "2.225073858507201e-308",
+               "0.10000000000000002", "-3.2500000000000005e-07"]
+    rng = np.random.default_rng(7)
+    rows_a, rows_b = [], []
+    for k in range(400):
+        ra = [repr(k * 0.01)] + [cells_a[(k * 3 + j) % len(cells_a)] for j in range(4)]
+        rb = list(ra)
+        if k % 3:                                           # two of three rows differ somewhere
+            j = 1 + int(rng.integers(4))
+            rb[j] = cells_b[cells_a.index(ra[j])] if ra[j] in cells_a else ra[j]
+        if k == 200:
+            rb[2] = '"' + rb[2] + '"'                       # a quoted cell: that block is read carefully
+        rows_a.append(ra)
+        rows_b.append(rb)
+    a, b = tmp_path / "a.csv", tmp_path / "b.csv"
+    a.write_bytes(("\r\n".join([",".join(header)] + [",".join(r) for r in rows_a]) + "\r\n").encode())
+    b.write_bytes(("\n".join([",".join(header)] + [",".join(r) for r in rows_b]) + "\n").encode())
+
+    read = []
+    real = tc.Cells.values
+    monkeypatch.setattr(tc.Cells, "values", lambda self, idx: read.append(len(idx)) or real(self, idx))
+    fast = compare(a, b, 1e-9, chunk_bytes=2000).to_dict()
+    assert sum(read) > 100                                   # the whole-block reading did the work
+    monkeypatch.setattr(tc.Cells, "values", lambda self, idx: None)
+    careful = compare(a, b, 1e-9, chunk_bytes=2000).to_dict()
+    assert fast == careful
+
+    def dev(x, y):
+        if x == "" and y == "":
+            return 0.0
+        if x == "" or y == "":
+            return math.inf
+        d = float(y.strip('"')) - float(x)
+        return abs(math.remainder(d, 2 * math.pi)) if header[j] == "theta" else abs(d)
+
+    for j, name in enumerate(header[1:], start=1):
+        devs = [dev(ra[j], rb[j]) for ra, rb in zip(rows_a, rows_b)]
+        want = max(devs)
+        got = fast["columns"][name]
+        assert (got["max_deviation"] if got["max_deviation"] is not None else math.inf) == want, name
+        if math.isfinite(want) and want > 0:
+            assert got["row"] == devs.index(want)
