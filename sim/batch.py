@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import multiprocessing
 import os
+import re
 import time
 import traceback
 from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -50,10 +51,25 @@ class Unit:
 
 
 # -- finding scenarios -------------------------------------------------------------
+_TOP_KEY = re.compile(r"^(?:%s)\s*:" % "|".join(SCENARIO_KEYS), re.M)
+
+
 def looks_like_scenario(path) -> bool:
-    """Whether a YAML file found in a folder is a scenario (see module docstring)."""
+    """Whether a YAML file found in a folder is a scenario (see module docstring).
+
+    A line starting with a scenario key settles it without parsing (the worker
+    parses the file anyway, and reports it if it is malformed); other files
+    are parsed, so that a malformed one is still listed as an input error.
+    """
     from .yamlread import load_file
 
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(1 << 16).decode("utf-8", "replace")
+    except OSError:
+        return True
+    if _TOP_KEY.search(head):
+        return True
     try:
         data = load_file(path)
     except InputError:
@@ -173,10 +189,16 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
 def pool_context():
     """Start method for worker processes: ``forkserver`` where there is one, else ``spawn``.
 
-    Not ``fork``: forking a process that runs threads can deadlock.
+    Not ``fork``: forking a process that runs threads can deadlock.  The fork
+    server imports the engine once, so each worker starts with numpy and
+    Trundle already loaded.
     """
     methods = multiprocessing.get_all_start_methods()
-    return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if "forkserver" in methods:
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["numpy", "yaml", "sim.batch", "sim.runner", "sim.baseline"])
+        return ctx
+    return multiprocessing.get_context("spawn")
 
 
 def _died(path, why) -> dict:
