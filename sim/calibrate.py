@@ -62,7 +62,7 @@ import numpy as np
 from . import fields as F
 from .engine import Simulator
 from .errors import InputError
-from .fields import cell_number
+from .fields import cell_number, csv_header, csv_records
 from .kinematics import inverse_matrix
 from .odometry import Odometer, OdometrySpec
 from .robot import Robot
@@ -468,30 +468,16 @@ def _read_csv(source, side):
     first = {"cw": None, "ccw": None}
     with fh:
         reader = csv.reader(fh)
-        try:
-            header = [h.strip().lower() for h in next(reader)]
-        except StopIteration:
-            raise InputError(source, 1, "empty file; expected a header row direction,x,y") from None
-        except csv.Error as exc:
-            raise InputError(source, 1, f"malformed CSV: {exc}") from None
+        header = [h.lower() for h in csv_header(reader, source, "empty file; expected a header row direction,x,y")]
         if sorted(header) != ["direction", "x", "y"]:
             raise InputError(source, 1, f"expected the columns direction,x,y (in any order), got {','.join(header)}")
         col = {h: i for i, h in enumerate(header)}
-        try:
-            for row in reader:
-                ln = reader.line_num
-                if not row or all(not c.strip() for c in row):
-                    continue
-                if len(row) != 3:
-                    raise InputError(source, ln, f"expected 3 cells, got {len(row)}")
-                d = row[col["direction"]].strip().lower()
-                if d not in pts:
-                    raise InputError(source, ln, f"direction must be cw or ccw, got '{row[col['direction']]}'")
-                vals = [cell_number(row[col[c]], source, ln, c, "m") for c in ("x", "y")]
-                pts[d].append(vals)
-                first[d] = first[d] or ln
-        except csv.Error as exc:
-            raise InputError(source, reader.line_num, f"malformed CSV: {exc}") from None
+        for ln, row in csv_records(reader, source, 3):
+            d = row[col["direction"]].strip().lower()
+            if d not in pts:
+                raise InputError(source, ln, f"direction must be cw or ccw, got '{row[col['direction']]}'")
+            pts[d].append([cell_number(row[col[c]], source, ln, c, "m") for c in ("x", "y")])
+            first[d] = first[d] or ln
     L = DEFAULT_SIDE if side is None else side
     return SquareRuns(L, np.array(pts["cw"], float).reshape(-1, 2), np.array(pts["ccw"], float).reshape(-1, 2),
                       source, (first["cw"], first["ccw"]))

@@ -156,3 +156,32 @@ def cell_number(cell: str, source: str, line: int, column: str, unit: str = "") 
     if not math.isfinite(v):
         raise InputError(source, line, f"column '{column}': expected a finite number, got '{cell}'")
     return v
+
+
+def csv_header(reader, source: str, empty: str) -> list:
+    """The first row of a ``csv.reader``, stripped; InputError at line 1 if missing or malformed."""
+    import csv
+    try:
+        return [h.strip() for h in next(reader)]
+    except StopIteration:
+        raise InputError(source, 1, empty) from None
+    except csv.Error as exc:
+        raise InputError(source, 1, f"malformed CSV: {exc}") from None
+
+
+def csv_records(reader, source: str, ncells: int):
+    """Yield ``(line, row)`` for the non-blank rows of a ``csv.reader``.
+
+    Every row must have ``ncells`` cells; malformed CSV becomes InputError at its line.
+    """
+    import csv
+    try:
+        for row in reader:
+            ln = reader.line_num
+            if not row or all(not c.strip() for c in row):
+                continue
+            if len(row) != ncells:
+                raise InputError(source, ln, f"expected {ncells} cells, got {len(row)}")
+            yield ln, row
+    except csv.Error as exc:
+        raise InputError(source, reader.line_num, f"malformed CSV: {exc}") from None

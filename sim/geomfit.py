@@ -32,7 +32,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from .errors import InputError
-from .fields import cell_number
+from .fields import cell_number, csv_header, csv_records
 from .odometry import DeadReckoner, integrate, wrap
 from .robot import Robot
 
@@ -94,12 +94,7 @@ def read_record(path, robot: Robot, wheels) -> Record:
         raise InputError(source, None, f"cannot read the recorded run: {exc.strerror}") from None
     with fh:
         reader = csv.reader(fh)
-        try:
-            header = [h.strip() for h in next(reader)]
-        except StopIteration:
-            raise InputError(source, 1, "empty file; expected a header row t,x,y,theta,...") from None
-        except csv.Error as exc:
-            raise InputError(source, 1, f"malformed CSV: {exc}") from None
+        header = csv_header(reader, source, "empty file; expected a header row t,x,y,theta,...")
         have = set(header)
         for w in wheels:
             if f"{w}.counts" in have:
@@ -117,19 +112,11 @@ def read_record(path, robot: Robot, wheels) -> Record:
             raise InputError(source, 1, f"missing column(s): {', '.join(missing)}")
         at = [header.index(c) for c in need]
         rows = []
-        try:
-            for row in reader:
-                ln = reader.line_num
-                if not row or all(not c.strip() for c in row):
-                    continue
-                if len(row) != len(header):
-                    raise InputError(source, ln, f"expected {len(header)} cells, got {len(row)}")
-                vals = [cell_number(row[j], source, ln, c) for c, j in zip(need, at)]
-                if rows and vals[0] <= rows[-1][0]:
-                    raise InputError(source, ln, f"'t' must increase, got {vals[0]:g} after {rows[-1][0]:g}")
-                rows.append(vals)
-        except csv.Error as exc:
-            raise InputError(source, reader.line_num, f"malformed CSV: {exc}") from None
+        for ln, row in csv_records(reader, source, len(header)):
+            vals = [cell_number(row[j], source, ln, c) for c, j in zip(need, at)]
+            if rows and vals[0] <= rows[-1][0]:
+                raise InputError(source, ln, f"'t' must increase, got {vals[0]:g} after {rows[-1][0]:g}")
+            rows.append(vals)
     if len(rows) < 3:
         raise InputError(source, None, f"a recorded run needs at least 3 rows, got {len(rows)}")
     arr = np.array(rows)

@@ -259,13 +259,7 @@ def _commands_csv(value, where, base_dir, robot):
     out = []
     with fh:
         reader = csv.reader(fh, strict=True)
-        try:
-            header = next(reader)
-        except StopIteration:
-            raise InputError(src, 1, "empty command log; expected a header row starting with t") from None
-        except csv.Error as exc:
-            raise InputError(src, 1, f"malformed CSV: {exc}") from None
-        header = [h.strip() for h in header]
+        header = F.csv_header(reader, src, "empty command log; expected a header row starting with t")
         if not header or header[0] != "t":
             raise InputError(src, 1, "the first column must be 't' (s)")
         cols = header[1:]
@@ -285,29 +279,21 @@ def _commands_csv(value, where, base_dir, robot):
                 if part == "steer" and wh.type != "steered":
                     raise InputError(src, 1, f"column '{c}': wheel '{name}' is not steered")
         last = -math.inf
-        try:
-            for row in reader:
-                ln = reader.line_num
-                if not row or all(not c.strip() for c in row):
-                    continue
-                if len(row) != len(header):
-                    raise InputError(src, ln, f"expected {len(header)} cells, got {len(row)}")
-                vals = [F.cell_number(cell, src, ln, c) for c, cell in zip(header, row)]
-                t = vals[0]
-                if t < 0 or t <= last:
-                    raise InputError(src, ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")
-                last = t
-                if is_twist:
-                    d = dict(zip(cols, vals[1:]))
-                    out.append(Command(t, "twist", (d.get("vx", 0.0), d.get("vy", 0.0), d.get("omega", 0.0)), ln))
-                else:
-                    cmds = {}
-                    for c, v in zip(cols, vals[1:]):
-                        name, _, part = c.partition(".")
-                        cmds.setdefault(name, {})[part] = v
-                    out.append(Command(t, "wheels", cmds, ln))
-        except csv.Error as exc:
-            raise InputError(src, reader.line_num, f"malformed CSV: {exc}") from None
+        for ln, row in F.csv_records(reader, src, len(header)):
+            vals = [F.cell_number(cell, src, ln, c) for c, cell in zip(header, row)]
+            t = vals[0]
+            if t < 0 or t <= last:
+                raise InputError(src, ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")
+            last = t
+            if is_twist:
+                d = dict(zip(cols, vals[1:]))
+                out.append(Command(t, "twist", (d.get("vx", 0.0), d.get("vy", 0.0), d.get("omega", 0.0)), ln))
+            else:
+                cmds = {}
+                for c, v in zip(cols, vals[1:]):
+                    name, _, part = c.partition(".")
+                    cmds.setdefault(name, {})[part] = v
+                out.append(Command(t, "wheels", cmds, ln))
     if not out:
         raise InputError(src, 2, "command log has no rows")
     return out
