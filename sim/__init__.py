@@ -11,14 +11,25 @@ pure numpy.  Typical use::
 """
 __version__ = "0.1.0"
 
-from .analysis import analyze  # noqa: E402
-from .engine import Simulator, StepResult  # noqa: E402
-from .errors import InputError  # noqa: E402
-from .kinematics import forward, inverse  # noqa: E402
-from .robot import Robot, Wheel, load_robot  # noqa: E402
-from .runner import RunResult, run_scenario  # noqa: E402
-from .scenario import Scenario, load_scenario  # noqa: E402
+# The names below load their module on first use, so that a command which does
+# not need numpy (``trundle batch`` handing work to its processes) starts fast.
+_API = {
+    "analyze": "analysis", "Simulator": "engine", "StepResult": "engine", "InputError": "errors",
+    "forward": "kinematics", "inverse": "kinematics", "Robot": "robot", "Wheel": "robot",
+    "load_robot": "robot", "RunResult": "runner", "run_scenario": "runner",
+    "Scenario": "scenario", "load_scenario": "scenario",
+}
+__all__ = [*_API, "__version__"]
 
-__all__ = ["analyze", "Simulator", "StepResult", "InputError", "forward", "inverse",
-           "Robot", "Wheel", "load_robot", "RunResult", "run_scenario", "Scenario",
-           "load_scenario", "__version__"]
+
+def __getattr__(name):
+    if name not in _API:
+        raise AttributeError(f"module 'sim' has no attribute {name!r}")
+    import importlib
+    value = getattr(importlib.import_module(f".{_API[name]}", __name__), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_API))

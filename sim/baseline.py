@@ -20,7 +20,8 @@ import tempfile
 
 from .errors import InputError
 from .runner import run_scenario
-from .tracediff import DEFAULT_TOLERANCE, compare
+from .tolerance import DEFAULT_TOLERANCE
+from .tracediff import compare
 from .tracemeta import meta_path, provenance_notes, read_meta
 
 MAX_ROWS = 2000

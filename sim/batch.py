@@ -27,14 +27,13 @@ from __future__ import annotations
 import multiprocessing
 import os
 import re
+import threading
 import time
 import traceback
-from concurrent.futures import ProcessPoolExecutor, as_completed
-from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 
 from .errors import InputError
-from .tracediff import DEFAULT_TOLERANCE
+from .tolerance import DEFAULT_TOLERANCE
 
 RESULTS = ("pass", "check failed", "diverged", "input error", "crashed")
 SCENARIO_KEYS = ("robot", "script", "commands")
@@ -186,19 +185,46 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
 
 
 # -- running many --------------------------------------------------------------
-def pool_context():
-    """Start method for worker processes: ``forkserver`` where there is one, else ``spawn``.
+PRELOAD = ("numpy", "yaml", "sim.batch", "sim.runner", "sim.baseline")  # what every worker needs
 
-    Not ``fork``: forking a process that runs threads can deadlock.  The fork
-    server imports the engine once, so each worker starts with numpy and
-    Trundle already loaded.
+
+def pool_context():
+    """Start method for a pool of fresh workers: ``forkserver`` where there is one, else ``spawn``.
+
+    Not ``fork`` from a process that may run threads (a lock held by another
+    thread stays locked in the child).  The fork server imports the engine
+    once, so each worker starts with numpy and Trundle already loaded.
     """
-    methods = multiprocessing.get_all_start_methods()
-    if "forkserver" in methods:
+    if "forkserver" in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["numpy", "yaml", "sim.batch", "sim.runner", "sim.baseline"])
+        ctx.set_forkserver_preload(list(PRELOAD))
         return ctx
     return multiprocessing.get_context("spawn")
+
+
+def _single_threaded() -> bool:
+    """Whether this process runs exactly one thread (Linux: counted by the kernel,
+    so threads started by libraries, such as numpy's BLAS pool, count too)."""
+    if threading.active_count() != 1:
+        return False
+    try:
+        with open("/proc/self/stat") as fh:
+            return int(fh.read().rsplit(")", 1)[1].split()[17]) == 1
+    except (OSError, ValueError, IndexError):
+        return False
+
+
+def worker_context():
+    """Start method for :func:`run_units`' workers.
+
+    ``fork`` when this process is single-threaded, which is the case for
+    ``trundle batch`` (it hands all work out and never imports numpy itself):
+    the workers then start in milliseconds and load the engine in parallel,
+    and no server process outlives the batch.  Otherwise :func:`pool_context`.
+    """
+    if "fork" in multiprocessing.get_all_start_methods() and _single_threaded():
+        return multiprocessing.get_context("fork")
+    return pool_context()
 
 
 def _died(path, why) -> dict:
@@ -210,17 +236,16 @@ def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLER
               on_done=None, work=run_one) -> list:
     """Run ``work`` for every unit; return the result dicts in unit order.
 
-    ``jobs`` 1 runs in this process; more uses a process pool.  A worker
-    process that dies takes only its own scenario with it: the others are
-    run again, one pool each, and the one that dies is marked crashed.
-    ``on_done(index, result)`` is called as results arrive (any order).
+    ``jobs`` 1 runs in this process; more uses that many worker processes
+    (:func:`_run_workers`).  A worker process that dies takes only the
+    scenario it was running with it: that one is marked crashed and a new
+    worker takes over the rest.  ``on_done(index, result)`` is called as
+    results arrive (any order).
     """
     units = list(units)
     results = [None] * len(units)
-
-    def call(i):
-        u = units[i]
-        return (u.path, baselines_dir, update), {"rel": u.rel, "tol": tol, "rules": list(rules)}
+    calls = [((u.path, baselines_dir, update), {"rel": u.rel, "tol": tol, "rules": list(rules)})
+             for u in units]
 
     def done(i, r):
         results[i] = r
@@ -228,40 +253,112 @@ def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLER
             on_done(i, r)
 
     if jobs <= 1 or len(units) <= 1:
-        for i in range(len(units)):
-            a, kw = call(i)
+        for i, (a, kw) in enumerate(calls):
             done(i, work(*a, **kw))
-        return results
-    ctx = pool_context()
-    broken = False
-    with ProcessPoolExecutor(max_workers=min(jobs, len(units)), mp_context=ctx) as ex:
-        futs = {}
-        for i in range(len(units)):
-            a, kw = call(i)
-            futs[ex.submit(work, *a, **kw)] = i
-        try:
-            for f in as_completed(futs):
-                try:
-                    r = f.result()
-                except BrokenProcessPool:
-                    broken = True
-                    continue
-                except Exception as exc:                     # noqa: BLE001
-                    r = _died(units[futs[f]].path, f"the work unit failed: {exc!r}")
-                done(futs[f], r)
-        except KeyboardInterrupt:
-            ex.shutdown(wait=False, cancel_futures=True)
-            raise
-    if broken:
-        for i in [i for i in range(len(units)) if results[i] is None]:
-            a, kw = call(i)
-            with ProcessPoolExecutor(max_workers=1, mp_context=ctx) as one:
-                try:
-                    r = one.submit(work, *a, **kw).result()
-                except BrokenProcessPool:
-                    r = _died(units[i].path, "the worker process died while running this scenario")
-            done(i, r)
+    else:
+        _run_workers(calls, min(jobs, len(units)), work, done)
     return results
+
+
+_IN_FLIGHT = 2  # units sent to a worker ahead of its results, so it never waits for this process
+
+
+def _serve(conn, work):
+    """Worker process: load the engine, then run ``(index, args, kwargs)`` messages
+    until ``None`` or the end of the pipe."""
+    import importlib
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
+    for name in PRELOAD:
+        importlib.import_module(name)
+    while True:
+        try:
+            msg = conn.recv()
+        except (EOFError, OSError):
+            return
+        if msg is None:
+            return
+        i, args, kw = msg
+        try:
+            r = work(*args, **kw)
+        except Exception as exc:                             # noqa: BLE001 - reported, not raised
+            r = _died(args[0], f"the work unit failed: {exc!r}")
+        conn.send((i, r))
+
+
+class _Worker:
+    """A worker process, this end of its pipe, and the units sent to it (oldest = running)."""
+
+    def __init__(self, ctx, work):
+        self.conn, child = ctx.Pipe()
+        self.proc = ctx.Process(target=_serve, args=(child, work), daemon=True)
+        self.proc.start()
+        child.close()
+        self.sent = []
+
+    def stop(self, hard=False):
+        try:
+            if hard:
+                self.proc.terminate()
+            else:
+                self.conn.send(None)
+        except OSError:
+            pass
+        self.conn.close()
+
+
+def _run_workers(calls, jobs, work, done) -> None:
+    """Hand ``calls`` to ``jobs`` worker processes, a few at a time, and collect the results.
+
+    One loop in this process waits on the workers' pipes (no threads), so a
+    unit costs one small message each way.  A pipe that ends before its
+    result means the worker died while running its oldest unit.
+    """
+    from multiprocessing.connection import wait
+
+    ctx = worker_context()
+    todo = list(range(len(calls)))[::-1]  # a stack: the next unit last
+    workers = []
+
+    def feed(w):
+        while todo and len(w.sent) < _IN_FLIGHT:
+            i = todo.pop()
+            w.sent.append(i)
+            w.conn.send((i, *calls[i]))
+
+    def start():
+        w = _Worker(ctx, work)
+        workers.append(w)
+        feed(w)
+
+    finished = False
+    try:
+        for _ in range(jobs):
+            start()
+        while any(w.sent for w in workers):
+            for conn in wait([w.conn for w in workers if w.sent]):
+                w = next(w for w in workers if w.conn is conn)
+                try:
+                    i, r = conn.recv()
+                except Exception:                            # noqa: BLE001 - EOF or a torn message
+                    i = w.sent.pop(0)
+                    todo.extend(w.sent[::-1])
+                    workers.remove(w)
+                    w.stop(hard=True)
+                    w.proc.join()
+                    done(i, _died(calls[i][0][0], "the worker process died while running this scenario"))
+                    if todo:
+                        start()
+                    continue
+                w.sent.remove(i)
+                done(i, r)
+                feed(w)
+        finished = True
+    finally:
+        for w in workers:
+            w.stop(hard=not finished)
+        for w in workers:
+            w.proc.join()
 
 
 # -- reporting -----------------------------------------------------------------

@@ -20,7 +20,8 @@ def run_units_dask(units, address, baselines_dir=None, update=False, tol=None, r
     except ImportError:
         raise InputError("--scheduler", None,
                          "needs dask.distributed: pip install 'trundle[cluster]'") from None
-    from .batch import DEFAULT_TOLERANCE, _died, run_one
+    from .batch import _died, run_one
+    from .tolerance import DEFAULT_TOLERANCE
     work = work or run_one
     tol = DEFAULT_TOLERANCE if tol is None else tol
     units = list(units)

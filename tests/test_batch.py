@@ -243,3 +243,61 @@ def test_units_keep_their_order(suite):
     results = run_units(units, jobs=2, on_done=lambda i, r: seen.append(i))
     assert [r["scenario"] for r in results] == [u.path for u in units]
     assert sorted(seen) == [0, 1]
+
+
+FORKED_BATCH = """\
+import os, sys, threading
+from sim.batch import find_scenarios, run_one, run_units, worker_context
+
+def dying_unit(path, baselines_dir, update, **kw):
+    if path.endswith("b-arc.yaml"):
+        os._exit(3)
+    return run_one(path, baselines_dir, update, **kw)
+
+if __name__ == "__main__":
+    method = worker_context().get_start_method()
+    units = find_scenarios([sys.argv[1]])
+    results = run_units(units, jobs=2, work=dying_unit)
+    print(method, "numpy" in sys.modules, threading.active_count())
+    print(*[r["result"] for r in results])
+"""
+
+
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="fork start method only")
+def test_batch_parent_forks_light_workers(suite, tmp_path):
+    """``trundle batch`` hands all work out, so its own process never loads numpy and
+    stays single-threaded: it may fork its workers, and a dying one is still isolated."""
+    import subprocess
+    import sys
+
+    from conftest import ROOT
+    script = tmp_path / "forked.py"
+    script.write_text(FORKED_BATCH)
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    r = subprocess.run([sys.executable, str(script), str(suite)], capture_output=True, text=True,
+                       env=env, timeout=120)
+    assert r.returncode == 0, r.stderr
+    head, results = r.stdout.splitlines()
+    assert head == "fork False 1"
+    assert results.split() == ["pass", "crashed", "pass", "pass"]
+    # the command line itself: building the parser and finding scenarios loads no numpy
+    probe = ("import sys; from sim.cli import _parser; from sim.batch import find_scenarios; "
+             f"_parser(); find_scenarios([{str(suite)!r}]); print('numpy' in sys.modules)")
+    r = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, env=env, timeout=60)
+    assert r.stdout.strip() == "False", r.stderr
+
+
+def test_no_fork_while_another_thread_runs():
+    """Forking while a second thread runs could copy a held lock: workers then come
+    from a fork server (or spawn)."""
+    import threading
+
+    from sim.batch import worker_context
+    stop = threading.Event()
+    t = threading.Thread(target=stop.wait)
+    t.start()
+    try:
+        assert worker_context().get_start_method() in ("forkserver", "spawn")
+    finally:
+        stop.set()
+        t.join()

@@ -58,7 +58,7 @@ class _Progress:
 def run(args) -> int:
     from ..batch import check_baseline_names, details, find_scenarios, run_units, table, write_junit
     from ..errors import InputError
-    from ..tracediff import parse_tolerances
+    from ..tolerance import parse_tolerances
 
     if args.update and not args.baselines:
         raise InputError("--update", None, "needs --baselines DIR (the folder of baseline traces to rewrite)")

@@ -26,7 +26,8 @@ def add_tolerance_arguments(p):
 def run(args) -> int:
     import json
 
-    from ..tracediff import compare, parse_tolerances
+    from ..tolerance import parse_tolerances
+    from ..tracediff import compare
 
     tol, rules = parse_tolerances(args.tol)
     cols = [c.strip() for c in args.columns.split(",") if c.strip()] if args.columns else None

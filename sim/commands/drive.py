@@ -11,9 +11,8 @@ def add_arguments(p):
                    help="write the trace CSV there, plus PATH-stem.commands.csv and PATH-stem.scenario.yaml "
                         "to replay it with trundle run")
     p.add_argument("--step", type=float, default=0.01, metavar="S", help="engine step in s (default 0.01)")
-    from ..engine import ALIGN_POLICIES
-    p.add_argument("--align", default="wait", choices=ALIGN_POLICIES,
-                   help="starting steering policy (P cycles it while driving)")
+    p.add_argument("--align", default="wait", metavar="POLICY",
+                   help="starting steering policy: wait, cosine or none (default wait; P cycles it while driving)")
     p.add_argument("--deadband", type=float, default=0.15, metavar="D",
                    help="gamepad stick dead band, 0..1 of full deflection (default 0.15)")
 
@@ -24,9 +23,12 @@ def run(args) -> int:
     import math
 
     from ..drive import DriveSession
+    from ..engine import ALIGN_POLICIES
     from ..errors import InputError
     from ..robot import load_robot
 
+    if args.align not in ALIGN_POLICIES:
+        raise InputError("--align", None, f"must be one of {', '.join(ALIGN_POLICIES)}, got '{args.align}'")
     if not (args.step > 0 and math.isfinite(args.step)):
         raise InputError("--step", None, f"must be a number > 0 s, got {args.step:g}")
     if not 0 <= args.deadband < 1:

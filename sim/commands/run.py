@@ -65,7 +65,7 @@ def _run_baseline(args, scen) -> int:
     """``--baseline``: run (to a temporary CSV unless --csv), compare, report."""
     from ..baseline import run_against
     from ..runner import summary_text
-    from ..tracediff import parse_tolerances
+    from ..tolerance import parse_tolerances
 
     tol, rules = parse_tolerances(args.tol)
     res, rep, notes = run_against(scen, args.baseline, tol, rules, csv=args.csv,
