@@ -18,10 +18,20 @@ Digits are laid out as ``repr`` does (positional for 1e-4 <= |x| < 1e16, else
 pattern that depends only on (sign, number of digits, exponent).  NaN becomes
 an empty field (a blank CSV cell).  :func:`format_block` also formats each
 run of repeated values in a column only once.
+
+The same algorithm, one value at a time, is compiled from ``sim/_csvtext.c``
+when the package is installed with a C compiler at hand; :func:`format_block`
+uses it when it is there (about four times faster), and this numpy code when
+it is not.  Both write exactly the bytes of :func:`format_block_numpy`.
 """
 from __future__ import annotations
 
 import numpy as np
+
+try:
+    from . import _csvtext
+except ImportError:  # installed without a C compiler
+    _csvtext = None
 
 _COLS = np.arange(17)[None, :]
 _QUAD = np.array([[48 + (v // 1000) % 10, 48 + (v // 100) % 10, 48 + (v // 10) % 10, 48 + v % 10]
@@ -64,6 +74,7 @@ def _p10_table():
 
 
 _KMAX = 300
+_TIE = 1e-6  # in units of the last digit: far above the error of the double-double product (~1e-14)
 _P10 = None
 
 
@@ -80,17 +91,20 @@ def _mantissas(a):
     double-double (Dekker's exact product with a double-double power of ten,
     error about 2**-104 relative), so ``a * 10**k = M17 + frac`` with
     ``|frac| <= 1/2`` is known to far better than a unit.  A p-digit candidate
-    is kept when its distance to ``a`` is below 0.499 of half the gap to the
-    nearer neighbouring double: it then converts back to exactly ``a``.
+    is kept when its distance to ``a`` is below 0.998 of half the gap to the
+    nearer neighbouring double: it then converts back to exactly ``a``.  One
+    that is not kept but lies within 1.002 of half the wider gap may or may not
+    read back as ``a`` (a near-tie, or the wide side below a power of two),
+    and ``a`` may lie halfway between two p-digit decimals (repr takes the
+    even one): ``ok`` is then False and ``repr`` decides.  Otherwise the nearest p-digit
+    decimal is repr's string: the shortest one that reads back, nearest to ``a``.
     Returns ``(M, p, e10, ok)`` with the shortest p in {15, 16, 17} found.
     """
-    global _P10
-    if _P10 is None:
-        _P10 = _p10_table()
+    ph_table, pl_table = _powers()
     e10 = np.floor(np.log10(a)).astype(np.int64)
     for _ in range(2):
         k = np.clip(16 - e10, -_KMAX, _KMAX)
-        ph, pl = _P10[0][k + _KMAX], _P10[1][k + _KMAX]
+        ph, pl = ph_table[k + _KMAX], pl_table[k + _KMAX]
         # exact product a * ph = hi + err (Dekker), then add a * pl
         hi = a * ph
         ah, al = _split(a)
@@ -106,10 +120,12 @@ def _mantissas(a):
         if not np.any(up | down):
             break
         e10 = e10 + up - down  # log10 was off by one next to a power of ten
-    gap = np.minimum(np.spacing(a), a - np.nextafter(a, 0.0)) * ph  # in units of 10**-k
-    limit = 0.499 * gap  # 0.998 of the half gap
+    below, above = a - np.nextafter(a, 0.0), np.spacing(a)  # gaps to the neighbours (in units of 10**-k below)
+    limit = 0.499 * np.minimum(below, above) * ph  # 0.998 of the narrower half gap: surely reads back as a
+    unsure = 0.501 * np.maximum(below, above) * ph  # up to 1.002 of the wider one: repr must decide
     M, p = M17.copy(), np.full(len(a), 17)
     ok = (np.abs(frac) < limit) & ~up & ~down & (np.abs(16 - e10) < _KMAX)
+    near_tie = np.abs(np.abs(frac) - 0.5) < _TIE  # halfway between two 17-digit decimals
     E = e10.copy()
     for digits, div in ((16, 10), (15, 100)):
         q, rem = np.divmod(M17, div)
@@ -117,11 +133,12 @@ def _mantissas(a):
         cand = q + (t >= 0.5)
         dist = np.abs((cand * div - M17) - frac)
         fits = ok & (dist < limit)
+        near_tie |= ok & ((~fits & (dist < unsure)) | (np.abs(rem + frac - div / 2) < _TIE))
         carry = cand >= 10 ** digits  # 99..9.5 rounded up: one digit more, one decade up
         M = np.where(fits, np.where(carry, cand // 10, cand), M)
         E = np.where(fits, e10 + carry, E)
         p = np.where(fits, digits, p)
-    return M, p, E, ok
+    return M, p, E, ok & ~near_tie
 
 
 def _chars(x):
@@ -179,19 +196,40 @@ def reprs(values) -> list:
     return [bytes(row[row != 0]).decode("ascii") for row in chars]
 
 
+def _powers():
+    global _P10
+    if _P10 is None:
+        _P10 = _p10_table()
+        if _csvtext is not None:
+            _csvtext.set_powers(_P10[0].tobytes(), _P10[1].tobytes())
+    return _P10
+
+
 def format_block(values) -> bytes:
     """CSV text (CRLF line ends) of a float array, shape (m, ncols); NaN -> blank.
 
-    Each run of equal values within a column is formatted once.
+    Compiled when available, else :func:`format_block_numpy`; the same bytes.
     """
     v = np.asarray(values, dtype=np.float64)
     if v.ndim != 2 or v.size == 0:
         return b""
+    if _csvtext is None:
+        return format_block_numpy(v)
+    _powers()
+    return _csvtext.format_block(np.ascontiguousarray(v))
+
+
+def format_block_numpy(values) -> bytes:
+    """:func:`format_block` in numpy: each run of equal values within a column is formatted once."""
+    v = np.asarray(values, dtype=np.float64)
+    if v.ndim != 2 or v.size == 0:
+        return b""
     m, ncols = v.shape
-    # runs of repeated values per column (NaN equal to NaN)
+    # runs of repeated values per column: the same bits (so -0.0 after 0.0 is new), or both NaN
     nan = np.isnan(v)
+    bits = v.view(np.uint64)
     new = np.ones((m, ncols), dtype=bool)
-    new[1:] = (v[1:] != v[:-1]) & ~(nan[1:] & nan[:-1])
+    new[1:] = (bits[1:] != bits[:-1]) & ~(nan[1:] & nan[:-1])
     order = new.T.reshape(-1)  # column-major: unique values column by column
     uniq = v.T.reshape(-1)[order]
     run = np.cumsum(order).reshape(ncols, m).T - 1  # (m, ncols) index into uniq
