@@ -22,6 +22,7 @@ castors use the reference engine (:func:`supported`).
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -152,6 +153,28 @@ def castor_path(h0, x, y, trail, twists, dt) -> np.ndarray:
     return np.unwrap(h, axis=0)
 
 
+def _inverse3(G):
+    """Inverse of a symmetric 3x3 normal matrix when well conditioned (the test of
+    :meth:`ChunkedSimulator._batch_twists`), else None; in Python floats (one small matrix)."""
+    (g0, g1, g2), (g3, g4, g5), (g6, g7, g8) = G.tolist()
+    c00, c01, c02 = g4 * g8 - g5 * g7, g5 * g6 - g3 * g8, g3 * g7 - g4 * g6
+    det = g0 * c00 + g1 * c01 + g2 * c02
+    if not det > _WELL_CONDITIONED * (g0 + g4 + g8) ** 3:
+        return None
+    return np.array([[c00, g2 * g7 - g1 * g8, g1 * g5 - g2 * g4],
+                     [c01, g0 * g8 - g2 * g6, g2 * g3 - g0 * g5],
+                     [c02, g1 * g6 - g0 * g7, g0 * g4 - g1 * g3]]) / det
+
+
+def _ramp_rows(distance, rate, m) -> int:
+    """Rows (of ``m``) a ramp at ``rate`` per row takes to cover each ``distance`` (arrays,
+    same units), plus one for rounding: every later row is the goal."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        need = np.where(distance > 0, distance / rate, 0.0)
+    worst = float(np.max(need)) if need.size else 0.0
+    return m if not worst < m else min(m, int(np.ceil(worst)) + 1)
+
+
 class ChunkedSimulator(Simulator):
     """A :class:`~sim.engine.Simulator` that advances many steps per call.
 
@@ -175,9 +198,12 @@ class ChunkedSimulator(Simulator):
             h0 = self.heading[st]
             goal = np.clip(self.steer_cmd[st], a.steer_lo[st], a.steer_hi[st])
             e0 = goal - h0
-            j = np.arange(1, m + 1, dtype=float)[:, None]
-            travel = np.minimum(j * (a.max_steer_rate[st] * self.dt), np.abs(e0))
-            H[:, st] = np.where(travel >= np.abs(e0), goal, h0 + np.sign(e0) * travel)
+            rate = a.max_steer_rate[st] * self.dt
+            L = _ramp_rows(np.abs(e0), rate, m)  # rows after these sit on the goal
+            j = np.arange(1, L + 1, dtype=float)[:, None]
+            travel = np.minimum(j * rate, np.abs(e0))
+            H[:L, st] = np.where(travel >= np.abs(e0), goal, h0 + np.sign(e0) * travel)
+            H[L:, st] = goal
         return H
 
     def _ramp(self, x0, target, length, together):
@@ -185,18 +211,22 @@ class ChunkedSimulator(Simulator):
         a, d = self.robot.arrays, self._driven
         dv = a.max_spin_accel[d] * self.dt
         delta = target - x0
-        j = np.arange(1, length + 1, dtype=float)[:, None]
+        X = np.empty((length, len(x0)))
         if together:
             need = np.abs(delta) / dv
             worst = float(np.max(need)) if need.size else 0.0
-            if worst <= 1.0:
-                X = np.broadcast_to(target, (length, len(x0))).copy()
-            else:
-                X = np.where(j >= worst, target, x0 + delta * (j / worst))
+            L = 0 if worst <= 1.0 else (length if not worst < length else min(length, math.ceil(worst) + 1))
+            j = np.arange(1, L + 1, dtype=float)[:, None]
+            X[:L] = np.where(j >= worst, target, x0 + delta * (j / worst))
         else:
+            L = _ramp_rows(np.abs(delta), dv, length)
+            j = np.arange(1, L + 1, dtype=float)[:, None]
             travel = np.minimum(j * dv, np.abs(delta))
-            X = np.where(travel >= np.abs(delta), target, x0 + np.sign(delta) * travel)
-        return np.clip(X, -a.max_spin[d], a.max_spin[d])
+            X[:L] = np.where(travel >= np.abs(delta), target, x0 + np.sign(delta) * travel)
+        lim = a.max_spin[d]
+        np.clip(X[:L], -lim, lim, out=X[:L])
+        X[L:] = np.clip(target, -lim, lim)  # the ramp has arrived
+        return X
 
     def _spin_path(self, targets, together):
         """Driven spins for per-step targets (m, n_driven), piecewise-constant runs in closed form."""
@@ -221,8 +251,12 @@ class ChunkedSimulator(Simulator):
         if hit is None:
             A, _, _ = motion_rows(self.robot, heading)
             S = _scale(self.robot)
-            if len(A):
-                U, sv, Vt = np.linalg.svd(A * S, full_matrices=False)
+            AS = A * S
+            Ginv = _inverse3(AS.T @ AS) if len(A) >= 3 else None
+            if Ginv is not None:  # well conditioned: normal equations, as in _batch_twists
+                P, rank = Ginv @ AS.T * S[:, None], 3
+            elif len(A):
+                U, sv, Vt = np.linalg.svd(AS, full_matrices=False)
                 rank = int(np.sum(sv > RANK_TOL * max(1.0, sv[0])))
                 P = (Vt[:rank].T / sv[:rank]) @ U[:, :rank].T * S[:, None]
             else:
@@ -232,6 +266,34 @@ class ChunkedSimulator(Simulator):
                 self._solve_cache.clear()
             self._solve_cache[key] = hit
         return hit
+
+    def _paired(self):
+        """Mask, shape (n,): driven standard wheels, which give both a rolling and a no-sliding row."""
+        a = self.robot.arrays
+        return a.driven & a.is_("fixed", "steered") & (a.roller == 0.0)
+
+    def _paired_gram(self):
+        """Sum of the scaled normal-equation terms of paired rows, shape (3, 3).
+
+        A wheel's rolling and no-sliding rows are its contact-velocity map
+        [[1, 0, -y], [0, 1, x]] turned by its heading, so together they add the
+        same term whatever the heading: the steering drops out of it.
+        """
+        a, S = self.robot.arrays, _scale(self.robot)
+        p = self._paired()
+        M = np.zeros((int(p.sum()), 2, 3))
+        M[:, 0, 0] = M[:, 1, 1] = 1.0
+        M[:, 0, 2], M[:, 1, 2] = -a.y[p], a.x[p]
+        MS = M * S
+        return np.einsum("wri,wrj->ij", MS, MS)
+
+    def _lone_rows(self):
+        """Indices, in :meth:`_batch_twists`' row order, of the rows of unpaired wheels."""
+        a = self.robot.arrays
+        p = self._paired()
+        idx_r = np.flatnonzero(a.driven)
+        idx_s = np.flatnonzero(a.is_("fixed", "steered"))
+        return np.flatnonzero(~p[np.concatenate([idx_r, idx_s])])
 
     def _batch_twists(self, H, B):
         """Least-squares twists for K steps whose headings differ row to row.
@@ -250,7 +312,11 @@ class ChunkedSimulator(Simulator):
         A = np.concatenate([np.stack([cr, sr, xr * sr - yr * cr], axis=2),
                             np.stack([-ss, cs, xs * cs + ys * ss], axis=2)], axis=1)
         AS = A * S
-        G = np.einsum("kri,krj->kij", AS, AS).reshape(-1, 9)
+        G = np.broadcast_to(self._paired_gram(), (len(H), 3, 3))
+        lone = self._lone_rows()
+        if len(lone):
+            G = G + np.einsum("kri,krj->kij", AS[:, lone], AS[:, lone])
+        G = G.reshape(-1, 9)
         rhs = np.einsum("kri,kr->ki", AS, B)
         g0, g1, g2, g3, g4, g5, g6, g7, g8 = G.T
         c00, c01, c02 = g4 * g8 - g5 * g7, g5 * g6 - g3 * g8, g3 * g7 - g4 * g6

@@ -251,3 +251,9 @@ def format_block_numpy(values) -> bytes:
     full[:, pos] = 10
     flat = full.reshape(-1)
     return flat[flat != 0].tobytes()
+
+
+def fixed(v, nd=3) -> str:
+    """Text for people: ``v`` with ``nd`` decimals, never as '-0.000'."""
+    s = f"{float(v):.{nd}f}"
+    return s[1:] if s.startswith("-") and float(s) == 0.0 else s

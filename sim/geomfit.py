@@ -231,7 +231,7 @@ def fit_geometry(robot: Robot, wheels, records) -> FitResult:
         if not s[0] > 0:
             raise InputError(src, None, "the wheel readings do not change with the geometry: the measured wheels "
                              "did not turn in these runs")
-        keep = s > 1e-12 * s[0]
+        keep = s > SVD_TOL * s[0]  # step only where the runs fix the geometry: the rest stays at its start
         g = U[:, keep].T @ r
         lam = 1e-6 * s[0] ** 2 if lam is None else lam
         while True:                       # Levenberg-Marquardt damping of the Gauss-Newton step

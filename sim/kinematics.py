@@ -14,6 +14,7 @@ twist" is nearest in it too.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -79,17 +80,22 @@ def forward_matrix(robot: Robot, heading) -> tuple:
     return P[:, : len(idx)] * (a.radius[idx] * np.cos(a.roller[idx]))[None, :], idx
 
 
+@lru_cache(maxsize=32)
 def admissible_basis(robot: Robot) -> np.ndarray:
-    """Orthonormal basis (scaled metric), shape (3, k), of twists the fixed wheels allow."""
+    """Orthonormal basis (scaled metric), shape (3, k), of twists the fixed wheels allow (read-only)."""
     a = robot.arrays
     fx = a.is_("fixed")
     from .constraints import sliding_rows
     C = sliding_rows(a.x[fx], a.y[fx], a.heading[fx]).reshape(-1, 3) * _scale(robot)
     if len(C) == 0:
-        return np.eye(3)
+        basis = np.eye(3)
+        basis.flags.writeable = False
+        return basis
     _, s, vt = np.linalg.svd(C)
     rank = int(np.sum(s > RANK_TOL * max(1.0, s[0])))
-    return vt[rank:].T
+    basis = np.ascontiguousarray(vt[rank:].T)
+    basis.flags.writeable = False
+    return basis
 
 
 @dataclass(frozen=True)
@@ -110,6 +116,9 @@ class Inverse:
     scale: float
 
 
+_DK = np.array([0.0, -1.0, 1.0]).reshape(3, 1)
+
+
 def choose_angle(target, spin_sign, current, lo, hi):
     """Pick ``target + k pi`` nearest ``current`` within [lo, hi]; arrays (n,).
 
@@ -119,19 +128,18 @@ def choose_angle(target, spin_sign, current, lo, hi):
     """
     target = np.asarray(target, dtype=float)
     current = np.asarray(current, dtype=float)
-    k0 = np.round((current - target) / np.pi)
-    best = np.full(target.shape, np.nan)
-    sign = np.ones(target.shape)
-    cost = np.full(target.shape, np.inf)
-    for dk in (0.0, -1.0, 1.0):
-        k = k0 + dk
-        cand = target + k * np.pi
-        outside = np.maximum(lo - cand, 0.0) + np.maximum(cand - hi, 0.0)
-        c = np.abs(cand - current) + 1e6 * outside
-        better = c < cost - 1e-12
-        best = np.where(better, cand, best)
-        sign = np.where(better, np.where(np.mod(k, 2.0) == 0.0, 1.0, -1.0), sign)
-        cost = np.where(better, c, cost)
+    k = np.round((current - target) / np.pi) + _DK  # candidates k0, k0 - 1, k0 + 1, shape (3, ...)
+    cand = target + k * np.pi
+    outside = np.maximum(lo - cand, 0.0) + np.maximum(cand - hi, 0.0)
+    cost = np.abs(cand - current) + 1e6 * outside
+    # the first candidate in that order unless a later one is cheaper by more than 1e-12
+    pick = np.zeros(target.shape, dtype=int)
+    for i in (1, 2):
+        best = np.take_along_axis(cost, pick[None], axis=0)[0]
+        pick = np.where(cost[i] < best - 1e-12, i, pick)
+    best = np.take_along_axis(cand, pick[None], axis=0)[0]
+    kk = np.take_along_axis(k, pick[None], axis=0)[0]
+    sign = np.where(np.mod(kk, 2.0) == 0.0, 1.0, -1.0)
     return best, sign * spin_sign
 
 

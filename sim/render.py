@@ -27,6 +27,8 @@ from collections import deque
 
 import numpy as np
 
+from .floatfmt import fixed
+
 DEFAULT_SIZE = (1120, 720)
 PANEL_W = 320
 
@@ -95,12 +97,6 @@ def nice_step(target: float) -> float:
         if m * 10.0 ** k >= target * (1 - 1e-12):
             return m * 10.0 ** k
     return 10.0 ** (k + 1)
-
-
-def _f(v, nd=3) -> str:
-    """``v`` with ``nd`` decimals, never as '-0.000'."""
-    s = f"{float(v):.{nd}f}"
-    return s[1:] if s.startswith("-") and float(s) == 0.0 else s
 
 
 # --------------------------------------------------------------------------
@@ -212,7 +208,7 @@ def command_notes(robot, row, align="wait", align_tolerance=None) -> list:
     if row.cmd_twist is not None:
         sf = np.asarray(row.shortfall, dtype=float)
         if np.linalg.norm(sf) > 1e-9:
-            parts = [f"{n} {_f(v, 3)}{u}" for n, v, u in
+            parts = [f"{n} {fixed(v, 3)}{u}" for n, v, u in
                      zip(("vx", "vy", "omega"), sf, (" m/s", " m/s", " rad/s")) if abs(v) > 1e-9]
             out.append("cannot follow " + ", ".join(parts) + ": the fixed wheels forbid it")
         ik = inverse(robot, row.cmd_twist, row.steer)
@@ -655,11 +651,11 @@ class Renderer:
             cmd2 = None
         else:
             cx_, cy_, cw_ = row.cmd_twist
-            cmd, cmd2 = f"vx {_f(cx_, 3)}  vy {_f(cy_, 3)} m/s", f"omega {_f(cw_, 4)} rad/s"
+            cmd, cmd2 = f"vx {fixed(cx_, 3)}  vy {fixed(cy_, 3)} m/s", f"omega {fixed(cw_, 4)} rad/s"
         icr = np.asarray(row.icr, dtype=float)
         if np.all(np.isfinite(icr)):
             r = math.hypot(icr[0] - px, icr[1] - py)
-            icr1, icr2 = f"({_f(icr[0], 3)}, {_f(icr[1], 3)}) m", f"{r:.3f} m from the centre"
+            icr1, icr2 = f"({fixed(icr[0], 3)}, {fixed(icr[1], 3)}) m", f"{r:.3f} m from the centre"
         elif math.hypot(tw[0], tw[1]) > _SPEED_EPS:
             icr1, icr2 = "at infinity", "pure translation"
         else:
@@ -667,10 +663,10 @@ class Renderer:
         skid = np.hypot(*wheel_skid(self.robot, row).T)
         worst = int(np.argmax(skid)) if len(skid) else 0
         rows = [("t", f"{row.t:.3f} s"),
-                ("pose", f"x {_f(px, 3)}  y {_f(py, 3)} m"),
-                ("", f"heading {_f(math.degrees(th), 2)} deg"),
-                ("twist", f"vx {_f(tw[0], 3)}  vy {_f(tw[1], 3)} m/s"),
-                ("", f"omega {_f(tw[2], 4)} rad/s"),
+                ("pose", f"x {fixed(px, 3)}  y {fixed(py, 3)} m"),
+                ("", f"heading {fixed(math.degrees(th), 2)} deg"),
+                ("twist", f"vx {fixed(tw[0], 3)}  vy {fixed(tw[1], 3)} m/s"),
+                ("", f"omega {fixed(tw[2], 4)} rad/s"),
                 ("command", cmd)]
         if cmd2:
             rows.append(("", cmd2))

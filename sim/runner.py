@@ -13,6 +13,7 @@ import numpy as np
 
 from .chunked import CHUNK, Block, ChunkedSimulator, supported
 from .engine import Simulator
+from .floatfmt import fixed
 from .scenario import Scenario
 from .trace import TraceWriter, columns
 from .tracemeta import write_meta
@@ -84,14 +85,14 @@ class _Checks:
             err = math.hypot(dx, dy)
             lim = tol.get("position", 0.0)
             ok &= err <= lim
-            parts.append(f"position ({row.pose[0]:.4f}, {row.pose[1]:.4f}) m vs "
-                         f"({want.get('x', row.pose[0]):.4f}, {want.get('y', row.pose[1]):.4f}): "
+            parts.append(f"position ({fixed(row.pose[0], 4)}, {fixed(row.pose[1], 4)}) m vs "
+                         f"({fixed(want.get('x', row.pose[0]), 4)}, {fixed(want.get('y', row.pose[1]), 4)}): "
                          f"off {err:.3g} m, allowed {lim:g}")
         if "theta" in want:
             err = abs(_wrap(row.pose[2] - want["theta"]))
             lim = tol.get("heading", 0.0)
             ok &= err <= lim
-            parts.append(f"heading {math.degrees(row.pose[2]):.3f} deg vs {math.degrees(want['theta']):.3f}: "
+            parts.append(f"heading {fixed(math.degrees(row.pose[2]))} deg vs {fixed(math.degrees(want['theta']))}: "
                          f"off {math.degrees(err):.3g} deg, allowed {math.degrees(lim):g}")
         return CheckResult(bool(ok), f"pose at t={c.at:g} s: " + "; ".join(parts), c.line)
 
@@ -315,10 +316,11 @@ def _account(res: RunResult, checks, block, last_pos) -> None:
     i = int(np.argmax(block.slip))
     if block.slip[i] > res.peak_slip:
         res.peak_slip, res.peak_slip_t = float(block.slip[i]), float(block.t[i])
-    sf = np.linalg.norm(block.shortfall * _metric(res.scenario.robot), axis=1)
-    j = int(np.argmax(sf))
-    if sf[j] > res.peak_shortfall:
-        res.peak_shortfall, res.peak_shortfall_t = float(sf[j]), float(block.t[j])
+    w = block.shortfall * _metric(res.scenario.robot)
+    j = int(np.argmax(np.einsum("ij,ij->i", w, w)))
+    sf = float(np.sqrt(w[j] @ w[j]))
+    if sf > res.peak_shortfall:
+        res.peak_shortfall, res.peak_shortfall_t = sf, float(block.t[j])
         res.peak_shortfall_twist = tuple(float(v) for v in block.shortfall[j])
     low = np.flatnonzero(block.rank < 3)
     if len(low) and res.underdetermined_t is None:
@@ -334,7 +336,7 @@ def summary_text(res: RunResult) -> str:
     lines = [f"scenario  {s.source}  ({s.robot.name}, {res.rows} rows: t = 0 to "
              f"{(res.rows - 1) * s.step:g} s in steps of {s.step:g} s{', INTERRUPTED' if res.interrupted else ''})",
              f"distance  {res.distance:.4f} m",
-             f"final     x {x:.4f} m  y {y:.4f} m  theta {math.degrees(th):.3f} deg",
+             f"final     x {fixed(x, 4)} m  y {fixed(y, 4)} m  theta {fixed(math.degrees(th))} deg",
              f"peak slip {res.peak_slip:.4g} m/s at t={res.peak_slip_t:g} s"]
     if res.peak_shortfall > 1e-9:
         vx, vy, w = res.peak_shortfall_twist
