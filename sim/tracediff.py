@@ -33,7 +33,6 @@ from __future__ import annotations
 import fnmatch
 import math
 import os
-import re
 from dataclasses import dataclass, field
 from itertools import compress
 from operator import itemgetter
