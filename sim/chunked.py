@@ -11,7 +11,10 @@ to ``CHUNK`` steps is therefore computed at once:
 * actuator paths in closed form (the ``cosine`` policy, whose targets change
   every step while wheels steer, falls back to a loop over those steps only);
 * twists as a batch of small least-squares solves, one per distinct steering
-  configuration (one for the whole run on a fixed-geometry base);
+  configuration (one for the whole run on a fixed-geometry base), by 3x3
+  normal equations where well conditioned; a driven standard wheel's two rows
+  add a heading-free term to them, so a base of driven steered wheels keeps
+  one normal matrix through every steering ramp;
 * castor swivels as prefix products of the per-step linear fractional maps of
   :mod:`sim.castor` (a log-depth scan), so passive castors stay vectorised;
 * poses by cumulative sums of the exact SE(2) increments.
