@@ -222,8 +222,12 @@ def main(argv=None) -> int:
             r = _sub("6", folder)
             rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],
                          "wall_s": r["wall"], "steps_per_s": r["steps"] / r["wall"], "peak_mb": r["peak_mb"]})
+    sys.path.insert(0, ROOT)
+    import numpy
+    from sim import floatfmt
+    writer = "compiled (sim/_csvtext.c)" if floatfmt._csvtext is not None else "numpy (no C extension built)"
     print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}, "
-          f"{platform.system()} {platform.release()}")
+          f"numpy {numpy.__version__}, {platform.system()} {platform.release()}; CSV writer: {writer}")
     print(f"{'case':<5}{'what':<46}{'steps':>10}{'wall s':>9}{'steps/s':>12}{'ratio':>8}{'peak MB':>9}")
     for r in rows:
         ratio = f"{r['ratio']:.1f}x" if "ratio" in r else ""
