@@ -27,6 +27,7 @@ from __future__ import annotations
 import multiprocessing
 import os
 import re
+import sys
 import threading
 import time
 import traceback
@@ -290,6 +291,9 @@ class _Worker:
     """A worker process, this end of its pipe, and the units sent to it (oldest = running)."""
 
     def __init__(self, ctx, work):
+        for stream in (sys.stdout, sys.stderr):  # a forked child must not write this process's buffered text again
+            if stream is not None:
+                stream.flush()
         self.conn, child = ctx.Pipe()
         self.proc = ctx.Process(target=_serve, args=(child, work), daemon=True)
         self.proc.start()
