@@ -89,3 +89,25 @@ def test_tractrix_through_chunked_engine():
     t = block.t
     expect = 2 * np.arctan(math.tan(math.pi / 4) * np.exp(-0.5 * t / 0.05))
     assert np.max(np.abs(block.steer[:, 2] - expect)) < 1e-9
+
+
+@pytest.mark.parametrize("robot_file", ["quad-steer.yaml", "greenhouse-rover.yaml", "tote-mecanum.yaml",
+                                        "ward-cart.yaml"])
+def test_normal_matrix_shortcut_equals_the_full_sum(repo_root, robot_file):
+    """The heading-free term of wheels with both rows, plus the other rows' terms, is the
+    normal matrix A^T A of the scaled rows at any steering (checked at random headings
+    against the sum built from sim.constraints' rows)."""
+    from sim.kinematics import _scale
+    from sim.constraints import motion_rows
+    from sim.robot import load_robot
+    robot = load_robot(repo_root / "scenarios" / "robots" / robot_file)
+    sim = ChunkedSimulator(robot, 0.01)
+    rng = np.random.default_rng(3)
+    S = _scale(robot)
+    lone = sim._lone_rows()
+    for _ in range(20):
+        h = robot.arrays.heading + rng.uniform(-math.pi, math.pi, len(robot.wheels))
+        A, _, _ = motion_rows(robot, h)
+        AS = A * S
+        shortcut = sim._paired_gram() + AS[lone].T @ AS[lone]
+        np.testing.assert_allclose(shortcut, AS.T @ AS, rtol=0, atol=1e-13)
