@@ -16,9 +16,16 @@
  */
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
+#include <float.h>
 #include <math.h>
 #include <stdint.h>
 #include <string.h>
+
+#if defined(__FAST_MATH__) || (defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD != 0)
+/* The exact-product steps need plain double rounding; without it the build fails
+   on purpose, and sim/floatfmt.py falls back to its numpy code. */
+#error "sim/_csvtext.c needs IEEE double arithmetic without excess precision or -ffast-math"
+#endif
 
 #define KMAX 300
 #define TIE 1e-6 /* in units of the last digit; the double-double error is ~1e-14 */

@@ -70,7 +70,8 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
     (the trace differs), ``metadata`` (same trace bytes, the sidecar differs:
     say a new robot hash) or ``unchanged``; ``report`` compares the old
     baseline with the new trace when the trace changed (else None).
-    Files are replaced atomically; an unchanged baseline is not touched.
+    Files are replaced atomically; an unchanged baseline is not touched, and
+    nothing is written when the run was interrupted (change None).
     """
     baseline = os.fspath(baseline)
     folder = os.path.dirname(os.path.abspath(baseline))
@@ -79,6 +80,8 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
     try:
         new = os.path.join(tmp, "new.csv")
         res = run_scenario(scen, csv=new, every=baseline_every(scen))
+        if res.interrupted:  # a cut-off run must never replace a baseline
+            return res, None, None
         old_exists = os.path.isfile(baseline)
         same_csv = old_exists and filecmp.cmp(new, baseline, shallow=False)
         same = (same_csv and os.path.isfile(meta_path(baseline))

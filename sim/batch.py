@@ -270,6 +270,7 @@ def _serve(conn, work):
     import importlib
     import signal
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)  # not the command line's handler, if forked from it
     for name in PRELOAD:
         importlib.import_module(name)
     while True:
@@ -328,7 +329,10 @@ def _run_workers(calls, jobs, work, done) -> None:
         while todo and len(w.sent) < _IN_FLIGHT:
             i = todo.pop()
             w.sent.append(i)
-            w.conn.send((i, *calls[i]))
+            try:
+                w.conn.send((i, *calls[i]))
+            except OSError:  # the worker died: wait() sees its pipe end and gives its units back
+                return
 
     def start():
         w = _Worker(ctx, work)

@@ -37,7 +37,7 @@ from .kinematics import RANK_TOL, _scale, inverse, snap
 from .se2 import body_increment
 
 CHUNK = 32768
-_WELL_CONDITIONED = 1e-12  # det(G)/trace(G)^3 above this: normal equations are safe
+_WELL_CONDITIONED = 1e-5  # det(G)/trace(G)^3 above this: normal equations are safe
 
 
 def supported(robot) -> bool:

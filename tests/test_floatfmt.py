@@ -1,7 +1,6 @@
 """Float text for traces: every string is exactly Python's repr (CPython's shortest
 round-trip conversion is the reference), from the numpy code and from the compiled one."""
-import shutil
-import sysconfig
+import os
 
 import numpy as np
 import pytest
@@ -82,8 +81,8 @@ def test_any_bit_pattern_is_written_as_repr(words):
         assert fmt(block) == expected(block)
 
 
-def test_compiled_formatter_is_built_where_a_compiler_is():
-    cc = (sysconfig.get_config_var("CC") or "cc").split()[0]
-    if shutil.which(cc) is None:
-        pytest.skip("no C compiler here: traces are written by the numpy formatter")
-    assert floatfmt._csvtext is not None, "installing the package (pip install -e .) compiles sim/_csvtext.c"
+def test_compiled_formatter_is_built_where_ci_asks_for_it():
+    """CI (.ci/run) sets TRUNDLE_REQUIRE_COMPILED=1: there the C writer must have been built."""
+    if floatfmt._csvtext is None and not os.environ.get("TRUNDLE_REQUIRE_COMPILED"):
+        pytest.skip("sim/_csvtext.c was not compiled here: traces are written by the numpy formatter")
+    assert floatfmt._csvtext is not None, "pip install -e . compiles sim/_csvtext.c (needs a C compiler)"
