@@ -301,3 +301,34 @@ def test_no_fork_while_another_thread_runs():
     finally:
         stop.set()
         t.join()
+
+
+def test_worker_dying_between_results_is_still_isolated(suite, write_files):
+    """The parent hands a unit to a worker that has just died (its previous result was
+    still being reported): that unit goes to a new worker, only the fatal one is lost."""
+    import time
+    write_files(suite, {"e-extra.yaml": spin_scenario(2.0, 3.0)})
+    units = find_scenarios([suite])
+    assert [u.rel for u in units][:3] == ["a-straight.yaml", "b-arc.yaml", "e-extra.yaml"]
+    results = run_units(units, jobs=2, work=dying_unit,
+                        on_done=lambda i, r: time.sleep(0.3) if i == 0 else None)
+    assert [r["result"] for r in results] == ["pass", "crashed", "pass", "pass", "pass"]
+
+
+def test_interrupted_update_keeps_the_old_baseline(suite, tmp_path, monkeypatch):
+    """Ctrl-C while recording: the cut-off run must not replace the baseline."""
+    from sim import baseline, runner
+    from sim.scenario import load_scenario
+    scen = load_scenario(suite / "b-arc.yaml")
+    path = tmp_path / "b-arc.csv"
+    _, change, _ = baseline.record(scen, path)
+    assert change == "new"
+    before = path.read_bytes(), (tmp_path / "b-arc.csv.meta.json").read_bytes()
+
+    def interrupt(*a, **k):
+        raise KeyboardInterrupt
+    monkeypatch.setattr(runner, "_account", interrupt)
+    res, change, report = baseline.record(scen, path)
+    assert res.interrupted and change is None and report is None
+    assert (path.read_bytes(), (tmp_path / "b-arc.csv.meta.json").read_bytes()) == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["b-arc.csv", "b-arc.csv.meta.json", "suite"]  # no leftovers
