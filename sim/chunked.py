@@ -170,12 +170,13 @@ def _inverse3(G):
 
 
 def _ramp_rows(distance, rate, m) -> int:
-    """Rows (of ``m``) a ramp at ``rate`` per row takes to cover each ``distance`` (arrays,
-    same units), plus one for rounding: every later row is the goal."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        need = np.where(distance > 0, distance / rate, 0.0)
-    worst = float(np.max(need)) if need.size else 0.0
-    return m if not worst < m else min(m, int(np.ceil(worst)) + 1)
+    """Rows (of ``m``) a ramp at ``rate`` per row takes to cover each ``distance`` (arrays of
+    a few wheels, same units), plus one for rounding: every later row is the goal."""
+    worst = 0.0
+    for dist, r in zip(distance.tolist(), rate.tolist()):
+        if dist > 0:
+            worst = max(worst, dist / r if r > 0 else math.inf)
+    return m if not worst < m else min(m, math.ceil(worst) + 1)
 
 
 class ChunkedSimulator(Simulator):

@@ -133,14 +133,11 @@ def choose_angle(target, spin_sign, current, lo, hi):
     outside = np.maximum(lo - cand, 0.0) + np.maximum(cand - hi, 0.0)
     cost = np.abs(cand - current) + 1e6 * outside
     # the first candidate in that order unless a later one is cheaper by more than 1e-12
-    pick = np.zeros(target.shape, dtype=int)
-    for i in (1, 2):
-        best = np.take_along_axis(cost, pick[None], axis=0)[0]
-        pick = np.where(cost[i] < best - 1e-12, i, pick)
-    best = np.take_along_axis(cand, pick[None], axis=0)[0]
-    kk = np.take_along_axis(k, pick[None], axis=0)[0]
-    sign = np.where(np.mod(kk, 2.0) == 0.0, 1.0, -1.0)
-    return best, sign * spin_sign
+    pick = np.where(cost[1] < cost[0] - 1e-12, 1, 0)
+    cols = np.arange(pick.size).reshape(pick.shape)
+    pick = np.where(cost[2] < cost[pick, cols] - 1e-12, 2, pick)
+    sign = np.where(np.mod(k[pick, cols], 2.0) == 0.0, 1.0, -1.0)
+    return cand[pick, cols], sign * spin_sign
 
 
 def inverse(robot: Robot, twist, heading) -> Inverse:
