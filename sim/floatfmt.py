@@ -4,25 +4,28 @@ Writing a trace spends most of its time turning floats into text; ``repr``
 costs about half a microsecond per value.  This module produces the same
 shortest round-trip strings for whole arrays with numpy:
 
-1. for p = 15 and 16 significant digits, round ``|x| * 10**k`` to an integer
-   ``M`` in extended precision and keep it when ``M / 10**k`` (also in extended
-   precision: exact operands, one rounding) lies safely inside the interval of
-   reals that round to ``x``, so it converts back to exactly ``x``;
-2. otherwise take 17 digits rounded in extended precision (``np.longdouble``
-   with a 64-bit or wider significand), which always round-trips;
-3. anything else (exponents outside those ranges, zeros, infinities, or a
-   platform whose ``longdouble`` is plain double) goes through ``repr``.
+1. ``|x| * 10**k`` is formed as a double-double (Dekker's exact product with a
+   double-double power of ten), giving the 17-digit mantissa ``M17`` and its
+   remainder to far better than a unit;
+2. the 16- and 15-digit roundings of ``M17`` are kept when they lie surely
+   inside the interval of reals that read back as ``x`` (0.998 of the
+   narrower half gap); the shortest kept one, with trailing zeros dropped, is
+   repr's string (:func:`_mantissas` says why);
+3. anything else goes through ``repr``: zeros, infinities, subnormals,
+   exponents beyond +-280, a candidate too near the edge of that interval
+   (near-ties, the lopsided gaps below a power of two) and exact halfway cases
+   (repr rounds those to even).
 
 Digits are laid out as ``repr`` does (positional for 1e-4 <= |x| < 1e16, else
 ``d.ddde+XX``), by gathering from a per-value symbol table with a layout
 pattern that depends only on (sign, number of digits, exponent).  NaN becomes
-an empty field (a blank CSV cell).  :func:`format_block` also formats each
-run of repeated values in a column only once.
+an empty field (a blank CSV cell).  :func:`format_block_numpy` also formats
+each run of repeated values in a column only once.
 
 The same algorithm, one value at a time, is compiled from ``sim/_csvtext.c``
 when the package is installed with a C compiler at hand; :func:`format_block`
-uses it when it is there (about four times faster), and this numpy code when
-it is not.  Both write exactly the bytes of :func:`format_block_numpy`.
+uses it when it is there (about five times faster per value), and the numpy
+code when it is not.  Both write exactly the bytes ``repr`` would.
 """
 from __future__ import annotations
 
