@@ -7,9 +7,10 @@
  * of ten from the table set by set_powers), the 17-digit mantissa, and the 16-
  * and 15-digit roundings kept when they lie safely inside the interval of reals
  * that read back as a.  Whatever that cannot settle (zeros, infinities,
- * subnormals, exponents beyond +-280, near-ties) is written by CPython's own
- * repr routine, PyOS_double_to_string(x, 'r', ...), so every string equals
- * repr(x).  A run of equal values in a column is formatted once.
+ * subnormals, exponents beyond +-280, near-ties, exact halfway cases) is written
+ * by CPython's own repr routine, PyOS_double_to_string(x, 'r', ...), so every
+ * string equals repr(x).  A run of equal values (same bits) in a column is
+ * formatted once.
  *
  * Build note: the double-double steps need each product rounded on its own, so
  * this file is compiled without floating-point contraction (-ffp-contract=off).
