@@ -149,7 +149,6 @@ def run_one(path, baselines_dir, update, rel=None, tol=DEFAULT_TOLERANCE, rules=
 
 
 def _run_one(out, path, baselines_dir, update, rel, tol, rules):
-    from .baseline import record, run_against
     from .runner import run_scenario
     from .scenario import load_scenario
 
@@ -158,6 +157,7 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
     if baselines_dir is None:
         res = run_scenario(scen)
     else:
+        from .baseline import record, run_against
         bpath = baseline_path(baselines_dir, rel or os.path.basename(path))
         out["baseline"] = bpath
         if update:
@@ -186,7 +186,7 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
 
 
 # -- running many --------------------------------------------------------------
-PRELOAD = ("numpy", "yaml", "sim.batch", "sim.runner", "sim.baseline")  # what every worker needs
+PRELOAD = ("numpy", "yaml", "sim.batch", "sim.runner")  # what every worker needs (sim.baseline: on demand)
 
 
 def pool_context():
@@ -326,7 +326,10 @@ def _run_workers(calls, jobs, work, done) -> None:
     workers = []
 
     def feed(w):
-        while todo and len(w.sent) < _IN_FLIGHT:
+        # one unit ahead while there is plenty left; near the end none, so no worker sits
+        # on a waiting unit that an idle one could run
+        depth = _IN_FLIGHT if len(todo) > len(workers) else 1
+        while todo and len(w.sent) < depth:
             i = todo.pop()
             w.sent.append(i)
             try:

@@ -36,16 +36,25 @@ try:
 except ImportError:  # installed without a C compiler
     _csvtext = None
 
-_COLS = np.arange(17)[None, :]
-_QUAD = np.array([[48 + (v // 1000) % 10, 48 + (v // 100) % 10, 48 + (v // 10) % 10, 48 + v % 10]
-                  for v in range(10000)], dtype=np.uint8)
 _W = 25  # widest layout: '-' + '0.000' + 17 digits, or '-d.' + 16 digits + 'e-308'
 # symbol indices in the per-value table
 _DOT, _E, _MINUS, _PLUS, _X100, _X10, _X1, _ZERO, _NUL = range(17, 26)
 _E0 = 400  # exponent offset in the layout key
 _patterns = {}
-_table = np.full((2 * 3 * 17 * 800, _W), _NUL, dtype=np.intp)  # key: sign, p, digits, exponent
-_built = np.zeros(2 * 3 * 17 * 800, dtype=bool)
+_LAYOUTS = None  # (quad digit table, layout table, built mask): made on first use (16 MB, ~15 ms)
+
+
+def _layouts():
+    """Lookup tables of the numpy path: digits 0000..9999 as character codes, and
+    the layout of each (sign, p, digits, exponent) key, filled in as keys appear."""
+    global _LAYOUTS
+    if _LAYOUTS is None:
+        v = np.arange(10000)
+        quad = np.stack([48 + v // 1000 % 10, 48 + v // 100 % 10, 48 + v // 10 % 10, 48 + v % 10],
+                        axis=1).astype(np.uint8)
+        _LAYOUTS = (quad, np.full((2 * 3 * 17 * 800, _W), _NUL, dtype=np.intp),
+                    np.zeros(2 * 3 * 17 * 800, dtype=bool))
+    return _LAYOUTS
 
 
 def _pattern(neg: int, nd: int, e10: int) -> list:
@@ -163,12 +172,13 @@ def _chars(x):
         todo[idx[~ok]] = True
     use = np.flatnonzero(~todo)
     if len(use):
+        quad, table, built = _layouts()
         Mu, pu, eu = M[use], nd[use], e10[use]
         # 17 digits, zero-padded on the left, four at a time from a lookup table
         sym = np.empty((len(use), 26), dtype=np.uint8)
         rem = Mu
         for c in (13, 9, 5, 1):
-            sym[:, c:c + 4] = _QUAD[rem % 10000]
+            sym[:, c:c + 4] = quad[rem % 10000]
             rem = rem // 10000
         sym[:, 0] = rem + 48
         # significant digits: p less the trailing zeros (digit j sits at column 17 - p + j)
@@ -178,15 +188,15 @@ def _chars(x):
         sym[:, _X100], sym[:, _X10], sym[:, _X1] = ae // 100 + 48, ae // 10 % 10 + 48, ae % 10 + 48
         sym[:, _ZERO], sym[:, _NUL] = 48, 0
         key = (((x[use] < 0) * 3 + (pu - 15)) * 17 + (n - 1)) * 800 + np.clip(eu + _E0, 0, 799)
-        missing = np.unique(key[~_built[key]])
+        missing = np.unique(key[~built[key]])
         for kcode in missing.tolist():
             e = kcode % 800 - _E0
             rest = kcode // 800
             nd_, rest = rest % 17 + 1, rest // 17
             p_, neg = rest % 3 + 15, rest // 3
-            _table[kcode] = [c + 17 - p_ if c < 17 else c for c in _pattern(neg, nd_, e)]
-            _built[kcode] = True
-        out[use] = np.take_along_axis(sym, _table[key], axis=1)
+            table[kcode] = [c + 17 - p_ if c < 17 else c for c in _pattern(neg, nd_, e)]
+            built[kcode] = True
+        out[use] = np.take_along_axis(sym, table[key], axis=1)
     for i in np.flatnonzero(todo & ~np.isnan(x)):
         s = repr(float(x[i])).encode("ascii")
         out[i, : len(s)] = np.frombuffer(s, dtype=np.uint8)
