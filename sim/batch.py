@@ -215,13 +215,33 @@ def _single_threaded() -> bool:
         return False
 
 
+MATH_THREADS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def prepare_parent(jobs: int) -> None:
+    """Get this process ready to run a batch (``trundle batch`` calls it first).
+
+    numpy's math libraries get one thread each unless the user set otherwise:
+    a batch is parallel by processes, and the engine's 3x3 and 8x3 matrices
+    gain nothing from BLAS threads (more threads per worker only crowd the
+    cores; common practice).  With workers, the engine is loaded here, before
+    any thread exists, so that forked workers start with it in place.
+    """
+    for name in MATH_THREADS:
+        os.environ.setdefault(name, "1")
+    if jobs > 1:
+        import importlib
+        for name in PRELOAD:
+            importlib.import_module(name)
+
+
 def worker_context():
     """Start method for :func:`run_units`' workers.
 
-    ``fork`` when this process is single-threaded, which is the case for
-    ``trundle batch`` (it hands all work out and never imports numpy itself):
-    the workers then start in milliseconds and load the engine in parallel,
-    and no server process outlives the batch.  Otherwise :func:`pool_context`.
+    ``fork`` when this process is single-threaded, as ``trundle batch`` is
+    after :func:`prepare_parent`: the workers then start in milliseconds with
+    the engine already loaded, and no server process outlives the batch.
+    Otherwise :func:`pool_context`.
     """
     if "fork" in multiprocessing.get_all_start_methods() and _single_threaded():
         return multiprocessing.get_context("fork")

@@ -246,8 +246,8 @@ def test_units_keep_their_order(suite):
 
 
 FORKED_BATCH = """\
-import os, sys, threading
-from sim.batch import find_scenarios, run_one, run_units, worker_context
+import os, sys
+from sim.batch import find_scenarios, prepare_parent, run_one, run_units, worker_context
 
 def dying_unit(path, baselines_dir, update, **kw):
     if path.endswith("b-arc.yaml"):
@@ -255,32 +255,37 @@ def dying_unit(path, baselines_dir, update, **kw):
     return run_one(path, baselines_dir, update, **kw)
 
 if __name__ == "__main__":
+    prepare_parent(2)
     method = worker_context().get_start_method()
     units = find_scenarios([sys.argv[1]])
     results = run_units(units, jobs=2, work=dying_unit)
-    print(method, "numpy" in sys.modules, threading.active_count())
+    threads = open("/proc/self/stat").read().rsplit(")", 1)[1].split()[17]
+    print(method, "numpy" in sys.modules, threads)
     print(*[r["result"] for r in results])
 """
 
 
 @pytest.mark.skipif(not hasattr(os, "fork"), reason="fork start method only")
-def test_batch_parent_forks_light_workers(suite, tmp_path):
-    """``trundle batch`` hands all work out, so its own process never loads numpy and
-    stays single-threaded: it may fork its workers, and a dying one is still isolated."""
+def test_batch_parent_forks_its_workers(suite, tmp_path):
+    """``trundle batch`` loads the engine with one-thread math libraries before any
+    worker exists, so it stays single-threaded and forks its workers (which start with
+    the engine loaded); a dying one is still isolated."""
     import subprocess
     import sys
 
     from conftest import ROOT
+    from sim.batch import MATH_THREADS
     script = tmp_path / "forked.py"
     script.write_text(FORKED_BATCH)
-    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    env = {k: v for k, v in os.environ.items() if k not in MATH_THREADS}
+    env["PYTHONPATH"] = str(ROOT)
     r = subprocess.run([sys.executable, str(script), str(suite)], capture_output=True, text=True,
                        env=env, timeout=120)
     assert r.returncode == 0, r.stderr
     head, results = r.stdout.splitlines()
-    assert head == "fork False 1"
+    assert head == "fork True 1"
     assert results.split() == ["pass", "crashed", "pass", "pass"]
-    # the command line itself: building the parser and finding scenarios loads no numpy
+    # the command line itself: building the parser and finding scenarios loads no numpy (fast start)
     probe = ("import sys; from sim.cli import _parser; from sim.batch import find_scenarios; "
              f"_parser(); find_scenarios([{str(suite)!r}]); print('numpy' in sys.modules)")
     r = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, env=env, timeout=60)

@@ -56,7 +56,8 @@ class _Progress:
 
 
 def run(args) -> int:
-    from ..batch import check_baseline_names, details, find_scenarios, run_units, table, write_junit
+    from ..batch import (check_baseline_names, details, find_scenarios, prepare_parent, run_units, table,
+                         write_junit)
     from ..errors import InputError
     from ..tolerance import parse_tolerances
 
@@ -65,6 +66,7 @@ def run(args) -> int:
     jobs = _cores() if args.jobs is None else args.jobs
     if jobs < 1:
         raise InputError("--jobs", None, f"must be a whole number >= 1, got {jobs}")
+    prepare_parent(1 if args.scheduler else jobs)
     tol, rules = parse_tolerances(args.tol)
     if args.baselines and not args.update and not os.path.isdir(args.baselines):
         raise InputError(args.baselines, None, "baselines folder not found (record baselines with --update)")
