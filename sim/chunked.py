@@ -447,25 +447,28 @@ class ChunkedSimulator(Simulator):
         if np.any(ball):
             v = contact_velocity(a.x[ball], a.y[ball], xi[:, None, :])
             spin[:, ball] = np.hypot(v[..., 0], v[..., 1]) / a.radius[ball]
+        # runs of one twist (a row whose twist differs from the one before starts a run):
+        # the increment and the body-frame ICR are worked out once per run
+        new = np.ones(m, bool)
+        new[1:] = np.any(xi[1:] != xi[:-1], axis=1)
+        starts = np.flatnonzero(new)
+        run = np.cumsum(new) - 1
+        xu = xi[starts]
         # poses: exact increments, cumulative sums
-        inc = body_increment(xi, dt)
+        inc = body_increment(xu, dt)[run]
         theta = np.cumsum(np.concatenate([[self.pose[2]], inc[:, 2]]))
         c, s = np.cos(theta[:-1]), np.sin(theta[:-1])
         x = np.cumsum(np.concatenate([[self.pose[0]], c * inc[:, 0] - s * inc[:, 1]]))
         y = np.cumsum(np.concatenate([[self.pose[1]], s * inc[:, 0] + c * inc[:, 1]]))
         pose = np.stack([x[:-1], y[:-1], theta[:-1]], axis=1)
-        # ICR in the world: fixed while the twist is; computed at the first row of each run
-        w = xi[:, 2]
+        # ICR in the world: fixed while the twist is, placed from the first row of each run
+        w = xu[:, 2]
         turning = np.abs(w) > ICR_OMEGA_MIN
         ws = np.where(turning, w, 1.0)
-        px, py = -xi[:, 1] / ws, xi[:, 0] / ws
-        icr = np.stack([np.where(turning, pose[:, 0] + c * px - s * py, np.nan),
-                        np.where(turning, pose[:, 1] + s * px + c * py, np.nan)], axis=1)
-        same = np.zeros(m, bool)
-        same[1:] = np.all(xi[1:] == xi[:-1], axis=1)
-        if np.any(same):
-            first = np.maximum.accumulate(np.where(same, 0, np.arange(m)))
-            icr = icr[first]
+        px, py = -xu[:, 1] / ws, xu[:, 0] / ws
+        c0, s0, p0 = c[starts], s[starts], pose[starts]
+        icr = np.stack([np.where(turning, p0[:, 0] + c0 * px - s0 * py, np.nan),
+                        np.where(turning, p0[:, 1] + s0 * px + c0 * py, np.nan)], axis=1)[run]
         angle = np.cumsum(np.vstack([self.angle[None, :], spin * dt]), axis=0)
         spin_cmd = np.full((m, n), np.nan)
         spin_cmd[:, d] = np.concatenate([p["targets"] for p in plans])
