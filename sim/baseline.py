@@ -12,11 +12,14 @@ N-th row, N = ceil(steps / MAX_ROWS) (the last row always).
 """
 from __future__ import annotations
 
+import contextlib
 import filecmp
 import math
 import os
 import shutil
+import signal
 import tempfile
+import threading
 
 from .errors import InputError
 from .runner import run_scenario
@@ -63,6 +66,20 @@ def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every
     return res, rep, notes
 
 
+@contextlib.contextmanager
+def _uninterrupted():
+    """Hold back SIGINT and SIGTERM (Unix, main thread) until the block is done."""
+    block = getattr(signal, "pthread_sigmask", None)
+    if block is None or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = block(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+    try:
+        yield
+    finally:
+        block(signal.SIG_SETMASK, old)
+
+
 def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
     """Write the baseline of ``scen`` at ``baseline`` (and its sidecar).
 
@@ -92,10 +109,11 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
                 report = compare(baseline, new, tol, rules)
             except InputError:
                 report = None                      # the old file was broken: just replace it
-        if not same_csv:
-            os.replace(new, baseline)
-        if not same:
-            os.replace(meta_path(new), meta_path(baseline))
+        with _uninterrupted():  # the trace and its sidecar change together
+            if not same_csv:
+                os.replace(new, baseline)
+            if not same:
+                os.replace(meta_path(new), meta_path(baseline))
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     change = ("unchanged" if same else "metadata" if same_csv else "changed" if old_exists else "new")

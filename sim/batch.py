@@ -221,14 +221,15 @@ MATH_THREADS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 def prepare_parent(jobs: int) -> None:
     """Get this process ready to run a batch (``trundle batch`` calls it first).
 
-    numpy's math libraries get one thread each unless the user set otherwise:
+    numpy's math libraries get one thread each unless the user set any of
+    :data:`MATH_THREADS`:
     a batch is parallel by processes, and the engine's 3x3 and 8x3 matrices
     gain nothing from BLAS threads (more threads per worker only crowd the
     cores; common practice).  With workers, the engine is loaded here, before
     any thread exists, so that forked workers start with it in place.
     """
-    for name in MATH_THREADS:
-        os.environ.setdefault(name, "1")
+    if not any(name in os.environ for name in MATH_THREADS):
+        os.environ.update(dict.fromkeys(MATH_THREADS, "1"))
     if jobs > 1:
         import importlib
         for name in PRELOAD:
@@ -284,44 +285,63 @@ def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLER
 _IN_FLIGHT = 2  # units sent to a worker ahead of its results, so it never waits for this process
 
 
-def _serve(conn, work):
+def _stop_unit(signum, frame):
+    raise KeyboardInterrupt  # the unit stops as on Ctrl-C: no baseline replaced, temporary files removed
+
+
+def _serve(conn, work, inherited=()):
     """Worker process: load the engine, then run ``(index, args, kwargs)`` messages
-    until ``None`` or the end of the pipe."""
+    until ``None`` or the end of the pipe.
+
+    ``inherited`` (forked workers): this process's copies of the parent's pipe
+    ends, closed first, so that the pipe ends when the parent does.  SIGTERM
+    (the parent stopping the batch) interrupts the running unit, which cleans up.
+    """
     import importlib
     import signal
+    for c in inherited:
+        c.close()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)  # not the command line's handler, if forked from it
-    for name in PRELOAD:
-        importlib.import_module(name)
-    while True:
-        try:
-            msg = conn.recv()
-        except (EOFError, OSError):
-            return
-        if msg is None:
-            return
-        i, args, kw = msg
-        try:
-            r = work(*args, **kw)
-        except Exception as exc:                             # noqa: BLE001 - reported, not raised
-            r = _died(args[0], f"the work unit failed: {exc!r}")
-        conn.send((i, r))
+    signal.signal(signal.SIGTERM, _stop_unit)
+    try:
+        for name in PRELOAD:
+            importlib.import_module(name)
+        while True:
+            try:
+                msg = conn.recv()
+            except (EOFError, OSError):
+                return
+            if msg is None:
+                return
+            i, args, kw = msg
+            try:
+                r = work(*args, **kw)
+            except Exception as exc:                         # noqa: BLE001 - reported, not raised
+                r = _died(args[0], f"the work unit failed: {exc!r}")
+            try:
+                conn.send((i, r))
+            except OSError:
+                return  # the parent is gone
+    except KeyboardInterrupt:
+        return
 
 
 class _Worker:
     """A worker process, this end of its pipe, and the units sent to it (oldest = running)."""
 
-    def __init__(self, ctx, work):
+    def __init__(self, ctx, work, others=()):
         for stream in (sys.stdout, sys.stderr):  # a forked child must not write this process's buffered text again
             if stream is not None:
                 stream.flush()
         self.conn, child = ctx.Pipe()
-        self.proc = ctx.Process(target=_serve, args=(child, work), daemon=True)
+        inherited = [self.conn, *(w.conn for w in others)] if ctx.get_start_method() == "fork" else []
+        self.proc = ctx.Process(target=_serve, args=(child, work, inherited), daemon=True)
         self.proc.start()
         child.close()
         self.sent = []
 
     def stop(self, hard=False):
+        """Ask the worker to finish (``None``), or interrupt its unit (``hard``: SIGTERM)."""
         try:
             if hard:
                 self.proc.terminate()
@@ -330,6 +350,12 @@ class _Worker:
         except OSError:
             pass
         self.conn.close()
+
+    def join(self):
+        self.proc.join(10.0)
+        if self.proc.is_alive():  # a unit that does not stop when told
+            self.proc.kill()
+            self.proc.join()
 
 
 def _run_workers(calls, jobs, work, done) -> None:
@@ -358,14 +384,16 @@ def _run_workers(calls, jobs, work, done) -> None:
                 return
 
     def start():
-        w = _Worker(ctx, work)
+        w = _Worker(ctx, work, workers)
         workers.append(w)
-        feed(w)
+        return w
 
     finished = False
     try:
-        for _ in range(jobs):
+        for _ in range(jobs):  # all of them first, so that the first does not take a second unit
             start()
+        for w in workers:
+            feed(w)
         while any(w.sent for w in workers):
             for conn in wait([w.conn for w in workers if w.sent]):
                 w = next(w for w in workers if w.conn is conn)
@@ -376,10 +404,10 @@ def _run_workers(calls, jobs, work, done) -> None:
                     todo.extend(w.sent[::-1])
                     workers.remove(w)
                     w.stop(hard=True)
-                    w.proc.join()
+                    w.join()
                     done(i, _died(calls[i][0][0], "the worker process died while running this scenario"))
                     if todo:
-                        start()
+                        feed(start())
                     continue
                 w.sent.remove(i)
                 done(i, r)
@@ -389,7 +417,7 @@ def _run_workers(calls, jobs, work, done) -> None:
         for w in workers:
             w.stop(hard=not finished)
         for w in workers:
-            w.proc.join()
+            w.join()
 
 
 # -- reporting -----------------------------------------------------------------

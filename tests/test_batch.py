@@ -337,3 +337,88 @@ def test_interrupted_update_keeps_the_old_baseline(suite, tmp_path, monkeypatch)
     assert res.interrupted and change is None and report is None
     assert (path.read_bytes(), (tmp_path / "b-arc.csv.meta.json").read_bytes()) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["b-arc.csv", "b-arc.csv.meta.json", "suite"]  # no leftovers
+
+
+ORPHANS = """\
+import sys, time
+from sim.batch import Unit, prepare_parent, run_units
+
+def short_nap(path, baselines_dir, update, **kw):
+    time.sleep(0.5)
+    return {"scenario": path}
+
+if __name__ == "__main__":
+    prepare_parent(2)
+    run_units([Unit(f"u{i}", f"u{i}") for i in range(40)], jobs=2, work=short_nap)
+"""
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self/task"), reason="reads /proc (Linux)")
+def test_workers_end_when_the_parent_is_killed(tmp_path):
+    """A parent killed outright (kill -9, out of memory): its forked workers finish the
+    unit in hand and exit instead of waiting forever on the pipe."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from conftest import ROOT
+    from sim.batch import MATH_THREADS
+    script = tmp_path / "orphans.py"
+    script.write_text(ORPHANS)
+    env = {k: v for k, v in os.environ.items() if k not in MATH_THREADS}
+    env["PYTHONPATH"] = str(ROOT)
+    p = subprocess.Popen([sys.executable, str(script)], env=env)
+    children = []
+    for _ in range(200):  # until both workers exist (up to 20 s)
+        time.sleep(0.1)
+        with open(f"/proc/{p.pid}/task/{p.pid}/children") as fh:
+            children = [int(c) for c in fh.read().split()]
+        if len(children) == 2:
+            break
+    assert len(children) == 2
+    os.kill(p.pid, signal.SIGKILL)
+    p.wait()
+    deadline = time.monotonic() + 10
+    while time.monotonic() < deadline and any(os.path.exists(f"/proc/{c}") for c in children):
+        time.sleep(0.1)
+    assert not any(os.path.exists(f"/proc/{c}") for c in children)
+
+
+@pytest.mark.skipif(not hasattr(os, "killpg"), reason="process groups (Unix)")
+def test_interrupted_batch_update_writes_nothing(tmp_path, write_files):
+    """Ctrl-C (SIGINT to the process group) during ``batch --update --jobs 2``: exit 130,
+    no baseline and no temporary file left behind."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from conftest import ROOT
+    write_files(tmp_path / "long", {"robots/axle.yaml": ROBOT} | {
+        f"s{i}.yaml": spin_scenario(4.0, 4.0 + i, duration=20000.0).replace("step: 0.01", "step: 0.001")
+        for i in range(2)})
+    bl = tmp_path / "bl"
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    p = subprocess.Popen([sys.executable, "-m", "sim", "batch", str(tmp_path / "long"), "--jobs", "2",
+                          "--baselines", str(bl), "--update"], env=env, stdout=subprocess.PIPE,
+                         stderr=subprocess.PIPE, text=True, start_new_session=True)
+    time.sleep(1.5)
+    os.killpg(p.pid, signal.SIGINT)
+    out, err = p.communicate(timeout=120)
+    assert p.returncode == 130, (out, err)
+    assert "Traceback" not in err
+    assert not bl.exists() or [q.name for q in bl.iterdir()] == []
+
+
+def pid_unit(path, baselines_dir, update, **kw):
+    import time
+    time.sleep(0.2)
+    return {"scenario": path, "pid": os.getpid()}
+
+
+def test_as_many_units_as_workers_use_them_all():
+    """With two units and two workers, each worker gets one (none queues a second
+    unit while another worker is idle)."""
+    results = run_units([Unit("a", "a"), Unit("b", "b")], jobs=2, work=pid_unit)
+    assert len({r["pid"] for r in results}) == 2

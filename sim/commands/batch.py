@@ -39,6 +39,12 @@ class _Progress:
         self.stream = stream or sys.stderr
         self.tty = self.stream.isatty()
 
+    def end_line(self):
+        """Finish a bar cut short, so that what follows starts on its own line."""
+        if self.tty and 0 < self.done < self.n:
+            self.stream.write("\n")
+            self.stream.flush()
+
     def __call__(self, i, r):
         self.done += 1
         s = self.stream
@@ -78,7 +84,12 @@ def run(args) -> int:
         results = run_units_dask(units, args.scheduler, args.baselines, args.update, tol, rules,
                                  on_done=_Progress(units))
     else:
-        results = run_units(units, args.baselines, args.update, jobs, tol, rules, on_done=_Progress(units))
+        progress = _Progress(units)
+        try:
+            results = run_units(units, args.baselines, args.update, jobs, tol, rules, on_done=progress)
+        except KeyboardInterrupt:
+            progress.end_line()
+            raise
     print(table(results, update=args.update))
     why = details(results)
     if why:
