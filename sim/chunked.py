@@ -173,7 +173,7 @@ def _ramp_rows(distance, rate, m) -> int:
     """Rows (of ``m``) a ramp at ``rate`` per row takes to cover each ``distance`` (arrays of
     a few wheels, same units), plus one for rounding: every later row is the goal."""
     worst = 0.0
-    for dist, r in zip(distance.tolist(), rate.tolist()):
+    for dist, r in zip(np.ravel(distance).tolist(), np.ravel(rate).tolist()):
         if dist > 0:
             worst = max(worst, dist / r if r > 0 else math.inf)
     return m if not worst < m else min(m, math.ceil(worst) + 1)
@@ -192,6 +192,7 @@ class ChunkedSimulator(Simulator):
         if not supported(robot):
             raise ValueError("the chunked engine does not handle driven castors; use Simulator")
         self._solve_cache = {}
+        self._gram0, self._lone = self._paired_gram(), self._lone_rows()
 
     # -- actuator paths --------------------------------------------------
     def _steer_path(self, m):
@@ -219,7 +220,7 @@ class ChunkedSimulator(Simulator):
         if together:
             need = np.abs(delta) / dv
             worst = float(np.max(need)) if need.size else 0.0
-            L = 0 if worst <= 1.0 else (length if not worst < length else min(length, math.ceil(worst) + 1))
+            L = 0 if worst <= 1.0 else _ramp_rows(worst, 1.0, length)  # the slowest wheel sets the pace
             j = np.arange(1, L + 1, dtype=float)[:, None]
             X[:L] = np.where(j >= worst, target, x0 + delta * (j / worst))
         else:
@@ -316,8 +317,8 @@ class ChunkedSimulator(Simulator):
         A = np.concatenate([np.stack([cr, sr, xr * sr - yr * cr], axis=2),
                             np.stack([-ss, cs, xs * cs + ys * ss], axis=2)], axis=1)
         AS = A * S
-        G = np.broadcast_to(self._paired_gram(), (len(H), 3, 3))
-        lone = self._lone_rows()
+        G = np.broadcast_to(self._gram0, (len(H), 3, 3))
+        lone = self._lone
         if len(lone):
             G = G + np.einsum("kri,krj->kij", AS[:, lone], AS[:, lone])
         G = G.reshape(-1, 9)
