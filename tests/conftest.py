@@ -4,6 +4,7 @@ Fixtures hand out plain functions (session scope, so hypothesis tests may use
 them too):
 
 * ``robot_from_yaml(text)``: a :class:`sim.robot.Robot` from inline YAML;
+  ``car_robot(wheelbase, track)``: a car-like base (fixed rear, steered front);
 * ``scenario_files(tmp_path, {name: text})`` / ``scenario_from_yaml``: write
   files and load a scenario;
 * ``cli(argv)``: ``sim.cli.main(argv)`` -> (exit code, stdout, stderr);
@@ -37,6 +38,19 @@ def robot_from_yaml(text: str, source: str = "<inline>"):
     from sim.yamlread import load_text
 
     return robot_from_data(load_text(textwrap.dedent(text), source), source)
+
+
+def car_robot(wheelbase: float, track: float):
+    """A car-like base (m): fixed rear wheels at x = 0, unpowered steered front wheels at
+    x = wheelbase, each pair ``track`` apart, radius 0.15 m."""
+    L, h = wheelbase, track / 2
+    return robot_from_yaml(f"""
+        wheels:
+          - {{name: rl, type: fixed, x: 0.0, y: {h}, radius: 0.15}}
+          - {{name: rr, type: fixed, x: 0.0, y: {-h}, radius: 0.15}}
+          - {{name: fl, type: steered, x: {L}, y: {h}, radius: 0.15, driven: false}}
+          - {{name: fr, type: steered, x: {L}, y: {-h}, radius: 0.15, driven: false}}
+    """)
 
 
 def write_files(folder, files: dict) -> dict:
@@ -142,6 +156,11 @@ class Textbook:
 @pytest.fixture(scope="session", name="robot_from_yaml")
 def _robot_from_yaml():
     return robot_from_yaml
+
+
+@pytest.fixture(scope="session", name="car_robot")
+def _car_robot():
+    return car_robot
 
 
 @pytest.fixture(scope="session", name="scenario_from_yaml")

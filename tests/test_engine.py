@@ -72,17 +72,11 @@ def test_diff_drive_matches_solve_ivp(engine, robot_from_yaml, scenario_from_yam
 
 
 @pytest.mark.parametrize("R", [2.0, -2.5, 1.0])
-def test_car_follows_twist_with_ackermann_angles(R, robot_from_yaml):
+def test_car_follows_twist_with_ackermann_angles(R, car_robot):
     # Ackermann (from memory; standard vehicle-dynamics texts): cot(outer) - cot(inner) =
     # track / wheelbase, each wheel's axle through the ICR on the rear axle line; no slip.
     L, t = 0.8, 0.6
-    robot = robot_from_yaml(f"""
-        wheels:
-          - {{name: rl, type: fixed, x: 0.0, y: {t / 2}, radius: 0.15}}
-          - {{name: rr, type: fixed, x: 0.0, y: {-t / 2}, radius: 0.15}}
-          - {{name: fl, type: steered, x: {L}, y: {t / 2}, radius: 0.15, driven: false}}
-          - {{name: fr, type: steered, x: {L}, y: {-t / 2}, radius: 0.15, driven: false}}
-    """)
+    robot = car_robot(L, t)
     sim = Simulator(robot, 0.01)
     rows = [sim.step(twist=(0.6, 0.0, 0.6 / R)) for _ in range(300)]
     last = rows[-1]

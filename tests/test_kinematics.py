@@ -97,18 +97,12 @@ def test_skid_steer_least_squares_matches_scipy(robot_from_yaml, textbook):
     assert fw.slip == pytest.approx(np.linalg.norm(A @ want - rhs), rel=1e-9)
 
 
-def test_car_inverse_gives_ackermann_angles(robot_from_yaml):
+def test_car_inverse_gives_ackermann_angles(car_robot):
     # Ackermann geometry (from memory; standard vehicle-dynamics texts): for a turn of radius R
     # about a point on the rear axle line, tan(inner) = L / (R - t/2), tan(outer) = L / (R + t/2),
     # so cot(outer) - cot(inner) = t / L.
     L, t = 0.8, 0.6
-    robot = robot_from_yaml(f"""
-        wheels:
-          - {{name: rl, type: fixed, x: 0.0, y: {t / 2}, radius: 0.15}}
-          - {{name: rr, type: fixed, x: 0.0, y: {-t / 2}, radius: 0.15}}
-          - {{name: fl, type: steered, x: {L}, y: {t / 2}, radius: 0.15, driven: false}}
-          - {{name: fr, type: steered, x: {L}, y: {-t / 2}, radius: 0.15, driven: false}}
-    """)
+    robot = car_robot(L, t)
     for R in (2.0, 1.2, 5.0):
         ik = inverse(robot, (0.6, 0.0, 0.6 / R), robot.arrays.heading)
         inner, outer = ik.steer[2], ik.steer[3]
