@@ -8,4 +8,4 @@ import sys
 from setuptools import Extension, setup
 
 flags = [] if sys.platform == "win32" else ["-O2", "-ffp-contract=off"]
-setup(ext_modules=[Extension("sim._csvtext", ["sim/_csvtext.c"], extra_compile_args=flags, optional=True)])
+setup(ext_modules=[Extension("sim.traces._csvtext", ["sim/traces/_csvtext.c"], extra_compile_args=flags, optional=True)])

@@ -14,10 +14,11 @@ __version__ = "0.1.0"
 # The names below load their module on first use, so that a command which does
 # not need numpy (``trundle batch`` handing work to its processes) starts fast.
 _API = {
-    "analyze": "analysis", "Simulator": "engine", "StepResult": "engine", "InputError": "errors",
-    "forward": "kinematics", "inverse": "kinematics", "Robot": "robot", "Wheel": "robot",
-    "load_robot": "robot", "RunResult": "runner", "run_scenario": "runner",
-    "Scenario": "scenario", "load_scenario": "scenario",
+    "analyze": "theory.analysis", "Simulator": "engine.simulator", "StepResult": "engine.simulator",
+    "InputError": "errors", "forward": "theory.kinematics", "inverse": "theory.kinematics",
+    "Robot": "model.robot", "Wheel": "model.robot", "load_robot": "files.robotfile",
+    "RunResult": "runs.runner", "run_scenario": "runs.runner",
+    "Scenario": "files.scenario", "load_scenario": "files.scenario",
 }
 __all__ = [*_API, "__version__"]
 
@@ -26,7 +27,7 @@ def __getattr__(name):
     if name not in _API:
         raise AttributeError(f"module 'sim' has no attribute {name!r}")
     import importlib
-    value = getattr(importlib.import_module(f".{_API[name]}", __name__), name)
+    value = getattr(importlib.import_module(f"sim.{_API[name]}"), name)
     globals()[name] = value
     return value
 

@@ -3,7 +3,7 @@
 Fixtures hand out plain functions (session scope, so hypothesis tests may use
 them too):
 
-* ``robot_from_yaml(text)``: a :class:`sim.robot.Robot` from inline YAML;
+* ``robot_from_yaml(text)``: a :class:`sim.model.robot.Robot` from inline YAML;
   ``car_robot(wheelbase, track)``: a car-like base (fixed rear, steered front);
 * ``scenario_files(tmp_path, {name: text})`` / ``scenario_from_yaml``: write
   files and load a scenario;
@@ -34,8 +34,8 @@ ROBOTS = SCENARIOS / "robots"
 
 def robot_from_yaml(text: str, source: str = "<inline>"):
     """A validated Robot from (indented) inline YAML text."""
-    from sim.robot import robot_from_data
-    from sim.yamlread import load_text
+    from sim.files.robotfile import robot_from_data
+    from sim.files.yamlread import load_text
 
     return robot_from_data(load_text(textwrap.dedent(text), source), source)
 
@@ -69,7 +69,7 @@ def write_files(folder, files: dict) -> dict:
 
 def scenario_from_yaml(folder, text: str, name: str = "scenario.yaml", extra: dict | None = None):
     """Write a scenario (and ``extra`` files beside it) and load it."""
-    from sim.scenario import load_scenario
+    from sim.files.scenario import load_scenario
 
     paths = write_files(folder, {name: text, **(extra or {})})
     return load_scenario(paths[name])

@@ -18,7 +18,7 @@ import scipy.linalg
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from sim.analysis import analyze
+from sim.theory.analysis import analyze
 
 S3 = math.sqrt(3.0)
 
@@ -244,7 +244,7 @@ def test_mobility_two_icr_on_axle_line(px, py, heading, robot_from_yaml):
     sign = np.sign(got @ want)
     np.testing.assert_allclose(sign * got, want, atol=2e-6)
     # and the engine's ICR of an unequal-spin motion lies on that line (row 0: body = world)
-    from sim.engine import Simulator
+    from sim.engine.simulator import Simulator
     row = Simulator(robot, 0.01).step(wheels={"a": 3.0, "b": 1.0})
     ix, iy = row.icr
     assert math.cos(h) * ix + math.sin(h) * iy == pytest.approx(want[2], abs=1e-9)

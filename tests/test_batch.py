@@ -6,7 +6,7 @@ import xml.etree.ElementTree as ET
 
 import pytest
 
-from sim.batch import Unit, find_scenarios, run_one, run_units
+from sim.runs.batch import Unit, find_scenarios, run_one, run_units
 
 ROBOT = """\
     name: axle
@@ -148,17 +148,17 @@ def test_update_says_what_changed_and_check_reports_divergence(suite, tmp_path, 
 
 
 def test_crash_and_bad_input_do_not_stop_the_others(suite, tmp_path, cli, write_files, monkeypatch):
-    import sim.runner
+    import sim.runs.runner
 
     write_files(suite, {"e-bad.yaml": spin_scenario(1.0, 2.0).replace("step: 0.01", "stpe: 0.01")})
-    real = sim.runner.run_scenario
+    real = sim.runs.runner.run_scenario
 
     def flaky(scen, *a, **kw):
         if scen.source.endswith("b-arc.yaml"):
             raise ZeroDivisionError("injected fault")
         return real(scen, *a, **kw)
 
-    monkeypatch.setattr(sim.runner, "run_scenario", flaky)
+    monkeypatch.setattr(sim.runs.runner, "run_scenario", flaky)
     junit = tmp_path / "out.xml"
     code, out, err = cli(["batch", suite, "--jobs", "1", "--junit", junit])
     assert code == 1
@@ -247,7 +247,7 @@ def test_units_keep_their_order(suite):
 
 FORKED_BATCH = """\
 import os, sys
-from sim.batch import find_scenarios, prepare_parent, run_one, run_units, worker_context
+from sim.runs.batch import find_scenarios, prepare_parent, run_one, run_units, worker_context
 
 def dying_unit(path, baselines_dir, update, **kw):
     if path.endswith("b-arc.yaml"):
@@ -274,7 +274,7 @@ def test_batch_parent_forks_its_workers(suite, tmp_path):
     import sys
 
     from conftest import ROOT
-    from sim.batch import MATH_THREADS
+    from sim.runs.batch import MATH_THREADS
     script = tmp_path / "forked.py"
     script.write_text(FORKED_BATCH)
     env = {k: v for k, v in os.environ.items() if k not in MATH_THREADS}
@@ -286,7 +286,7 @@ def test_batch_parent_forks_its_workers(suite, tmp_path):
     assert head == "fork True 1"
     assert results.split() == ["pass", "crashed", "pass", "pass"]
     # the command line itself: building the parser and finding scenarios loads no numpy (fast start)
-    probe = ("import sys; from sim.cli import _parser; from sim.batch import find_scenarios; "
+    probe = ("import sys; from sim.cli.app import _parser; from sim.runs.batch import find_scenarios; "
              f"_parser(); find_scenarios([{str(suite)!r}]); print('numpy' in sys.modules)")
     r = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, env=env, timeout=60)
     assert r.stdout.strip() == "False", r.stderr
@@ -297,7 +297,7 @@ def test_no_fork_while_another_thread_runs():
     from a fork server (or spawn)."""
     import threading
 
-    from sim.batch import worker_context
+    from sim.runs.batch import worker_context
     stop = threading.Event()
     t = threading.Thread(target=stop.wait)
     t.start()
@@ -322,8 +322,8 @@ def test_worker_dying_between_results_is_still_isolated(suite, write_files):
 
 def test_interrupted_update_keeps_the_old_baseline(suite, tmp_path, monkeypatch):
     """Ctrl-C while recording: the cut-off run must not replace the baseline."""
-    from sim import baseline, runner
-    from sim.scenario import load_scenario
+    from sim.runs import baseline, runner
+    from sim.files.scenario import load_scenario
     scen = load_scenario(suite / "b-arc.yaml")
     path = tmp_path / "b-arc.csv"
     _, change, _ = baseline.record(scen, path)
@@ -341,7 +341,7 @@ def test_interrupted_update_keeps_the_old_baseline(suite, tmp_path, monkeypatch)
 
 ORPHANS = """\
 import sys, time
-from sim.batch import Unit, prepare_parent, run_units
+from sim.runs.batch import Unit, prepare_parent, run_units
 
 def short_nap(path, baselines_dir, update, **kw):
     time.sleep(0.5)
@@ -363,7 +363,7 @@ def test_workers_end_when_the_parent_is_killed(tmp_path):
     import time
 
     from conftest import ROOT
-    from sim.batch import MATH_THREADS
+    from sim.runs.batch import MATH_THREADS
     script = tmp_path / "orphans.py"
     script.write_text(ORPHANS)
     env = {k: v for k, v in os.environ.items() if k not in MATH_THREADS}

@@ -9,13 +9,13 @@ import numpy as np
 import pytest
 import yaml
 
-from sim import calibrate as C
-from sim import geomfit as G
+from sim.runs import calibrate as C
+from sim.runs import geomfit as G
 from sim.cli import main
 from sim.errors import InputError
-from sim.robot import load_robot
-from sim.runner import run_scenario
-from sim.scenario import scenario_from_data
+from sim.files.robotfile import load_robot
+from sim.runs.runner import run_scenario
+from sim.files.scenario import scenario_from_data
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 SCEN = os.path.join(HERE, "..", "scenarios")

@@ -11,10 +11,10 @@ import os
 import numpy as np
 import pytest
 
-from sim.chunked import ChunkedSimulator, castor_path, prefix_products
-from sim.castor import swivel
-from sim.runner import run_scenario
-from sim.scenario import load_scenario
+from sim.engine.chunked import ChunkedSimulator, castor_path, prefix_products
+from sim.theory.castor import swivel
+from sim.runs.runner import run_scenario
+from sim.files.scenario import load_scenario
 
 HERE = os.path.dirname(__file__)
 SCENARIOS = sorted(glob.glob(os.path.join(HERE, "..", "scenarios", "*.yaml")))
@@ -41,7 +41,7 @@ def test_chunked_agrees_with_reference(path):
 
 def test_chunk_size_does_not_matter(monkeypatch):
     """Splitting a run into odd-sized chunks gives the same rows to rounding."""
-    import sim.runner as runner
+    import sim.runs.runner as runner
     scen = load_scenario(os.path.join(HERE, "..", "scenarios", "quad-steer-dogleg.yaml"))
     whole = run_scenario(scen, keep=True, engine="chunked").trace
     monkeypatch.setattr(runner, "CHUNK", 37)
@@ -76,8 +76,8 @@ def test_castor_path_equals_repeated_swivel():
 
 def test_tractrix_through_chunked_engine():
     """Castor dragged straight from 90 deg: tan(psi/2) = tan(psi0/2) exp(-v t / d) (tractrix, classical)."""
-    from sim.robot import robot_from_data
-    from sim.yamlread import load_text
+    from sim.files.robotfile import robot_from_data
+    from sim.files.yamlread import load_text
     robot = robot_from_data(load_text(
         "wheels:\n"
         "  - {name: l, type: fixed, x: 0, y: 0.2, radius: 0.05}\n"
@@ -96,14 +96,14 @@ def test_tractrix_through_chunked_engine():
 def test_normal_matrix_shortcut_equals_the_full_sum(repo_root, robot_file):
     """The heading-free term of wheels with both rows, plus the other rows' terms, is the
     normal matrix A^T A of the scaled rows at any steering (checked at random headings
-    against the sum built from sim.constraints' rows)."""
-    from sim.kinematics import _scale
-    from sim.constraints import motion_rows
-    from sim.robot import load_robot
+    against the sum built from sim.theory.constraints' rows)."""
+    from sim.theory.kinematics import twist_scale
+    from sim.theory.constraints import motion_rows
+    from sim.files.robotfile import load_robot
     robot = load_robot(repo_root / "scenarios" / "robots" / robot_file)
     sim = ChunkedSimulator(robot, 0.01)
     rng = np.random.default_rng(3)
-    S = _scale(robot)
+    S = twist_scale(robot)
     lone = sim._lone_rows()
     for _ in range(20):
         h = robot.arrays.heading + rng.uniform(-math.pi, math.pi, len(robot.wheels))

@@ -12,9 +12,9 @@ import subprocess
 import numpy as np
 import pytest
 
-from sim.runner import run_scenario
-from sim.scenario import load_scenario
-from sim.trace import BASE_COLUMNS
+from sim.runs.runner import run_scenario
+from sim.files.scenario import load_scenario
+from sim.traces.writer import BASE_COLUMNS
 
 ROBOTS = pathlib.Path(__file__).resolve().parents[1] / "scenarios" / "robots"
 
@@ -274,7 +274,7 @@ def test_trace_arrays_equal_csv(cart_dir, cli):
 
 def test_interrupted_run_exits_130_with_complete_csv(tmp_path, monkeypatch, cli):
     # 40 001 rows: more than one block of the streaming writer; stop after the first block
-    from sim import trace
+    from sim.traces import writer as trace
     monkeypatch.chdir(tmp_path)
     (tmp_path / "cart.yaml").write_text(CART)
     (tmp_path / "long.yaml").write_text("robot: cart.yaml\nstep: 0.001\nduration: 40\nscript:\n"

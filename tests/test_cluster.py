@@ -5,8 +5,8 @@ import pytest
 
 distributed = pytest.importorskip("distributed")
 
-from sim.batch import find_scenarios, run_units  # noqa: E402
-from sim.cluster import run_units_dask  # noqa: E402
+from sim.runs.batch import find_scenarios, run_units  # noqa: E402
+from sim.runs.cluster import run_units_dask  # noqa: E402
 
 ROOT = os.path.join(os.path.dirname(__file__), "..")
 

@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 import sympy as sp
 
-from sim import constraints as C
+from sim.theory import constraints as C
 
 a, l, b, g, d = sp.symbols("alpha l beta gamma d", real=True)
 vx, vy, w, bdot = sp.symbols("v_x v_y omega betadot", real=True)

@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from sim.runner import run_scenario
-from sim.scenario import load_scenario
+from sim.runs.runner import run_scenario
+from sim.files.scenario import load_scenario
 
 SCENARIOS = pathlib.Path(__file__).resolve().parents[1] / "scenarios"
 ALL = sorted(p.name for p in SCENARIOS.glob("*.yaml"))

@@ -11,7 +11,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from sim import Simulator
-from sim.runner import run_scenario, summary_text
+from sim.runs.runner import run_scenario, summary_text
 
 # run_scenario picks the chunked engine when it applies ("auto"); both must meet the references
 ENGINES = ["reference", "auto"]
@@ -94,7 +94,7 @@ def test_bundled_car_zero_slip_once_aligned(repo_root):
     # The bundled greenhouse rover steers at 1.5 rad/s; with align: wait it holds the drive
     # until the wheels are within tolerance; once they reach the Ackermann angles
     # (from memory, as above) no wheel slips.
-    from sim.scenario import load_scenario
+    from sim.files.scenario import load_scenario
     res = run_scenario(load_scenario(repo_root / "scenarios" / "greenhouse-rover-ackermann.yaml"), keep=True)
     tr = res.trace
     L, t, R = 0.8, 0.6, 2.0
@@ -155,7 +155,7 @@ def test_skid_steer_turn_slips_on_outer_axles_only(repo_root):
     # Skid steering (common practice): the middle axle of a six-wheel skid steer sits at the
     # turning centre's x, so it does not slip sideways; the front and rear axles do, in
     # opposite directions, by omega times their distance from the middle axle.
-    from sim.scenario import load_scenario
+    from sim.files.scenario import load_scenario
     tr = run_scenario(load_scenario(repo_root / "scenarios" / "field-rover-skid-turn.yaml"), keep=True).trace
     turning = tr["omega"] > 0.1
     assert turning.sum() > 100

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from sim import floatfmt
-from sim.floatfmt import format_block, format_block_numpy, reprs
+from sim.traces import floatfmt
+from sim.traces.floatfmt import format_block, format_block_numpy, reprs
 
 FORMATTERS = [format_block_numpy] + ([format_block] if floatfmt._csvtext is not None else [])
 

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from sim.kinematics import choose_angle, forward, forward_matrix, inverse, inverse_matrix
+from sim.theory.kinematics import choose_angle, forward, forward_matrix, inverse, inverse_matrix
 
 MECANUM = """
     wheels:

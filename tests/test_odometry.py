@@ -11,13 +11,13 @@ import numpy as np
 import pytest
 
 from sim.cli import main
-from sim.engine import Simulator
+from sim.engine.simulator import Simulator
 from sim.errors import InputError
-from sim.odometry import Odometer, OdometrySpec
-from sim.robot import load_robot
-from sim.runner import run_scenario
-from sim.scenario import load_scenario, scenario_from_data
-from sim.yamlread import load_file
+from sim.odometry.encoders import Odometer, OdometrySpec
+from sim.files.robotfile import load_robot
+from sim.runs.runner import run_scenario
+from sim.files.scenario import load_scenario, scenario_from_data
+from sim.files.yamlread import load_file
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 SCEN = os.path.join(HERE, "..", "scenarios")

@@ -7,9 +7,9 @@ import math
 import numpy as np
 import pytest
 
-from sim.plot import PATH, figure, plot_traces, read_trace
-from sim.runner import run_scenario
-from sim.scenario import load_scenario
+from sim.view.plot import PATH, figure, plot_traces, read_trace
+from sim.runs.runner import run_scenario
+from sim.files.scenario import load_scenario
 
 from conftest import SCENARIOS
 

@@ -18,8 +18,8 @@ os.environ["SDL_VIDEODRIVER"] = "dummy"
 os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 
 from sim import Simulator, load_robot  # noqa: E402
-from sim import render  # noqa: E402
-from sim.render import PALETTE, PANEL_W, Renderer, View, to_array  # noqa: E402
+from sim.view import render  # noqa: E402
+from sim.view.render import PALETTE, PANEL_W, Renderer, View, to_array  # noqa: E402
 
 from conftest import ROBOTS, ROOT, SCENARIOS  # noqa: E402
 
@@ -299,7 +299,7 @@ def test_picture_options_bad_input(cli, expect_input_error, tmp_path):
 
 
 def test_cli_import_loads_neither_pygame_nor_matplotlib():
-    code = ("import sys, sim.cli; sim.cli._parser(); "
+    code = ("import sys, sim.cli.app; sim.cli.app._parser(); "
             "print('pygame' in sys.modules, 'matplotlib' in sys.modules)")
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=env, capture_output=True, text=True,

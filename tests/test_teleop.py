@@ -20,10 +20,10 @@ os.environ["SDL_VIDEODRIVER"] = "dummy"
 os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 
 from sim import load_robot  # noqa: E402
-from sim.render import _pg, command_notes  # noqa: E402
-from sim.runner import run_scenario  # noqa: E402
-from sim.scenario import load_scenario  # noqa: E402
-from sim.teleop import (TeleopConfig, TeleopState, body_twist, deadband, press,  # noqa: E402
+from sim.view.render import _pg, command_notes  # noqa: E402
+from sim.runs.runner import run_scenario  # noqa: E402
+from sim.files.scenario import load_scenario  # noqa: E402
+from sim.view.teleop import (TeleopConfig, TeleopState, body_twist, deadband, press,  # noqa: E402
                         stick_axes, sticks)
 
 from conftest import ROBOTS, ROOT, SCENARIOS  # noqa: E402
@@ -114,7 +114,7 @@ def read_csv(path):
 
 @pytest.fixture
 def session_factory(tmp_path):
-    from sim.drive import DriveSession
+    from sim.view.drive import DriveSession
 
     made = []
 

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from sim.tracediff import compare
+from sim.traces.diff import compare
 
 R = 0.08           # m, wheel radius of the test axle
 TRACK = 0.44       # m, distance between the wheels
@@ -317,7 +317,7 @@ def test_quoted_cells_and_missing_last_line_end_are_read(tmp_path, cli):
 
 # -- baselines: sidecar metadata and run --baseline -----------------------------------
 def test_sidecar_beside_csv_and_csv_stays_plain(tmp_path, cli, repo_root):
-    from sim.scenario import load_scenario
+    from sim.files.scenario import load_scenario
     scen_path = repo_root / "scenarios" / "ward-cart-arc.yaml"
     out_csv = tmp_path / "arc.csv"
     assert cli(["run", scen_path, "--csv", out_csv, "--every", "3"])[0] == 0
@@ -373,7 +373,7 @@ def test_run_against_baseline(tmp_path, cli, write_files):
 
 def test_parallel_segments_give_the_same_report(axle_pair, tmp_path, monkeypatch):
     """Large files are split into row ranges across processes; forced here on a small pair."""
-    import sim.tracediff as td
+    import sim.traces.diff as td
     from sim.errors import InputError
 
     a, b = axle_pair
@@ -393,7 +393,7 @@ def test_parallel_segments_give_the_same_report(axle_pair, tmp_path, monkeypatch
 # -- reading cells as numbers: the whole-block reading against Python's float ----------------
 from hypothesis import given, settings, strategies as st  # noqa: E402
 
-from sim.tracecsv import Cells  # noqa: E402
+from sim.traces.csvread import Cells  # noqa: E402
 
 _DIGITS = st.text("0123456789", max_size=9)
 
@@ -448,7 +448,7 @@ def test_whole_block_and_cell_by_cell_readings_agree(tmp_path, monkeypatch):
 
     Reference for the deviations: the csv module and float(), cell by cell (as above).
     """
-    import sim.tracecsv as tc
+    import sim.traces.csvread as tc
 
     header = ["t", "x", "y", "theta", "icr_x"]
     cells_a = ["0.5", "-0.0", "1e-05", "", "+2.5", "1.5E+3", ".25", "7.", "123456789012345678901234",

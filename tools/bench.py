@@ -137,7 +137,7 @@ def _one(case: str, folder: str) -> dict:
         if case == "1":
             sys.path.insert(0, os.path.join(ROOT, "tools"))
             import naive_loop
-            from sim.runner import entry_steps
+            from sim.runs.runner import entry_steps
             ks = entry_steps(scen.script, scen.step)
             script = [(k, c.value) for k, c in zip(ks, scen.script) if c.kind == "twist"]
             t = time.perf_counter()
@@ -228,7 +228,7 @@ def main(argv=None) -> int:
                          "wall_s": r["wall"], "steps_per_s": r["steps"] / r["wall"], "peak_mb": r["peak_mb"]})
     sys.path.insert(0, ROOT)
     import numpy
-    from sim import floatfmt
+    from sim.traces import floatfmt
     writer = "compiled (sim/_csvtext.c)" if floatfmt._csvtext is not None else "numpy (no C extension built)"
     print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}, "
           f"numpy {numpy.__version__}, {platform.system()} {platform.release()}; CSV writer: {writer}")

@@ -1,0 +1,79 @@
+"""``trundle run SCENARIO.yaml``: run a scenario headless (CSV trace, checks)."""
+from __future__ import annotations
+
+
+NAME = "run"
+HELP = "run a scenario: summary, checks, optional CSV trace"
+
+
+def add_arguments(p):
+    p.add_argument("scenario", help="scenario file (YAML)")
+    p.add_argument("--csv", metavar="PATH", help="write the trace as CSV")
+    p.add_argument("--every", type=int, default=1, metavar="N", help="keep every N-th row in the CSV")
+    p.add_argument("--engine", choices=("auto", "reference", "chunked"), default="auto",
+                   help="auto (default): the chunked engine where it applies; reference: the "
+                        "step-by-step definition (slower; for cross-checks)")
+    p.add_argument("--baseline", metavar="PATH",
+                   help="compare the trace with a recorded one (exit 1 when they diverge)")
+    from sim.cli.options import add_tolerance_arguments
+    add_tolerance_arguments(p)
+    p.add_argument("--window", action="store_true",
+                   help="watch the run in a window in real time (h in the window lists the keys)")
+    p.add_argument("--png", metavar="PATH", help="write the final frame as a PNG (no display needed)")
+    p.add_argument("--frames", metavar="DIR", help="write numbered PNG frames into DIR")
+    p.add_argument("--fps", type=float, default=30.0, metavar="N",
+                   help="frames per second of run time for --frames (default 30)")
+
+
+def run(args) -> int:
+    from sim.errors import InputError
+    from sim.runs.runner import run_scenario, summary_text
+    from sim.files.scenario import load_scenario
+
+    if args.every < 1:
+        raise InputError("--every", None, f"must be a whole number >= 1, got {args.every}")
+    if args.window or args.png or args.frames:
+        from sim.errors import require
+        require("pygame", "--window/--png/--frames")
+    scen = load_scenario(args.scenario)
+    if args.baseline:
+        return _run_baseline(args, scen)
+    if args.window or args.png or args.frames:
+        from sim.view.playback import view_run
+        res = view_run(scen, csv=args.csv, every=args.every, window=args.window, png=args.png,
+                       frames=args.frames, fps=args.fps)
+    else:
+        if args.engine == "chunked":
+            from sim.engine.chunked import supported
+            if not supported(scen.robot):
+                raise InputError("--engine", None, "the chunked engine does not handle driven castors; "
+                                 "use --engine auto or reference")
+        res = run_scenario(scen, csv=args.csv, every=args.every, engine=args.engine)
+    print(summary_text(res))
+    if args.png:
+        print(f"picture   {args.png}")
+    if args.frames:
+        print(f"frames    {args.frames}/ at {args.fps:g} per second of run time")
+    if args.csv:
+        print(f"trace     {args.csv} ({res.rows if args.every == 1 else 'every ' + str(args.every) + ' of ' + str(res.rows)} rows)")
+    if res.interrupted:
+        return 130
+    return 0 if res.passed else 1
+
+
+def _run_baseline(args, scen) -> int:
+    """``--baseline``: run (to a temporary CSV unless --csv), compare, report."""
+    from sim.runs.baseline import run_against
+    from sim.runs.runner import summary_text
+    from sim.traces.tolerance import parse_tolerances
+
+    tol, rules = parse_tolerances(args.tol)
+    res, rep, notes = run_against(scen, args.baseline, tol, rules, csv=args.csv,
+                                  every=None if args.every == 1 else args.every)
+    print(summary_text(res))
+    print(rep.text("baseline", "run"))
+    for n in notes:
+        print(f"note      {n}")
+    if res.interrupted:
+        return 130
+    return 0 if res.passed and not rep.diverged else 1

@@ -1,0 +1,128 @@
+"""Robot files: read and validate a robot description into a :class:`~sim.model.robot.Robot`.
+
+See README "Robot file" for the format.
+"""
+from __future__ import annotations
+
+import math
+import os
+
+from sim.files import fields as F
+from sim.files.yamlread import load_file
+from sim.model.robot import WHEEL_TYPES, Robot, Wheel
+
+_COMMON = ("name", "type", "x", "y", "heading", "radius", "driven",
+           "max_spin", "max_spin_accel", "encoder")
+_EXTRA = {
+    "fixed": (),
+    "steered": ("steer_limits", "max_steer_rate", "steer_resolution"),
+    "castor": ("trail", "steer_resolution"),
+    "swedish": ("roller",),
+    "ball": (),
+}
+_ROBOT_KEYS = ("name", "footprint", "wheels")
+
+
+def load_robot(path: str | os.PathLike) -> Robot:
+    """Read and validate a robot file.  Raises :class:`InputError`."""
+    source = os.fspath(path)
+    return robot_from_data(load_file(source), source)
+
+
+def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None) -> Robot:
+    """Validate parsed YAML (a mapping) into a :class:`Robot`."""
+    where = where or F.Where(source, "", getattr(data, "line", 1) or 1)
+    if data is None:
+        raise where.error("empty robot description; expected a mapping with 'wheels'")
+    data = F.expect_map(data, where, "a robot description (a mapping with name, footprint, wheels)")
+    F.check_keys(data, _ROBOT_KEYS, where, required=("wheels",))
+    name = F.name(data["name"], where.at(data, "name")) if "name" in data else "robot"
+    length, width, fx, fy = 0.6, 0.4, 0.0, 0.0
+    if "footprint" in data:
+        fw = where.at(data, "footprint")
+        fp = F.expect_map(data["footprint"], fw, "a mapping {length, width, x, y}")
+        F.check_keys(fp, ("length", "width", "x", "y"), fw, required=("length", "width"))
+        length = F.number(fp["length"], fw.at(fp, "length"), positive=True, unit="m")
+        width = F.number(fp["width"], fw.at(fp, "width"), positive=True, unit="m")
+        fx = F.number(fp.get("x", 0.0), fw.at(fp, "x"), unit="m")
+        fy = F.number(fp.get("y", 0.0), fw.at(fp, "y"), unit="m")
+    ww = where.at(data, "wheels")
+    items = F.expect_list(data["wheels"], ww, "a list of wheels")
+    if not items:
+        raise ww.error("a base needs at least one wheel")
+    wheels, seen = [], {}
+    for i, item in enumerate(items):
+        w = _wheel(item, ww.at(items, i))
+        if w.name in seen:
+            raise ww.at(items, i).error(f"duplicate wheel name '{w.name}' (first used on line {seen[w.name]})")
+        seen[w.name] = w.line
+        wheels.append(w)
+    return Robot(name=name, wheels=tuple(wheels), length=length, width=width, source=source,
+                 footprint_x=fx, footprint_y=fy)
+
+
+def _wheel(item, where: F.Where) -> Wheel:
+    item = F.expect_map(item, where, "a wheel mapping")
+    F.check_keys(item, _COMMON + tuple(dict.fromkeys(k for ks in _EXTRA.values() for k in ks)), where,
+                 required=("name", "type", "x", "y", "radius"))
+    at = lambda k: where.at(item, k)
+    wtype = F.choice(item["type"], WHEEL_TYPES, at("type"))
+    allowed = _COMMON + _EXTRA[wtype]
+    for key in item:
+        if key not in allowed:
+            owners = [t for t, ks in _EXTRA.items() if key in ks]
+            raise at(key).error(f"'{key}' applies to {'/'.join(owners)} wheels only, not {wtype}")
+    name = F.name(item["name"], at("name"))
+    kw = dict(
+        name=name, type=wtype,
+        x=F.number(item["x"], at("x"), unit="m"),
+        y=F.number(item["y"], at("y"), unit="m"),
+        heading=F.angle(item.get("heading", 0.0), at("heading")),
+        radius=F.number(item["radius"], at("radius"), positive=True, unit="m"),
+        line=where.line,
+    )
+    driven = wtype in ("fixed", "steered", "swedish")
+    if "driven" in item:
+        driven = F.boolean(item["driven"], at("driven"))
+        if driven and wtype == "ball":
+            raise at("driven").error("ball wheels are passive; driven must be false")
+    kw["driven"] = driven
+    if "max_spin" in item:
+        kw["max_spin"] = F.number(item["max_spin"], at("max_spin"), positive=True, unit="rad/s")
+    if "max_spin_accel" in item:
+        kw["max_spin_accel"] = F.number(item["max_spin_accel"], at("max_spin_accel"), positive=True, unit="rad/s^2")
+    if "encoder" in item:
+        e = item["encoder"]
+        if isinstance(e, bool) or not isinstance(e, int) or e <= 0:
+            raise at("encoder").error(f"encoder counts per revolution must be a whole number > 0, got {F.describe(e)}")
+        kw["encoder"] = e
+    if "steer_resolution" in item:
+        kw["steer_resolution"] = F.angle(item["steer_resolution"], at("steer_resolution"))
+        if kw["steer_resolution"] <= 0:
+            raise at("steer_resolution").error("must be > 0")
+    if wtype == "steered":
+        if "steer_limits" in item:
+            sw = at("steer_limits")
+            lim = F.expect_list(item["steer_limits"], sw, "[low, high] angles")
+            if len(lim) != 2:
+                raise sw.error(f"expected [low, high], got {len(lim)} values")
+            lo, hi = (F.angle(v, sw.at(lim, j)) for j, v in enumerate(lim))
+            if not lo < hi:
+                raise sw.error("low limit must be below high limit")
+            if not lo <= kw["heading"] <= hi:
+                raise at("heading").error(
+                    f"starting angle {math.degrees(kw['heading']):g} deg is outside steer_limits "
+                    f"[{math.degrees(lo):g}, {math.degrees(hi):g}] deg")
+            kw["steer_limits"] = (lo, hi)
+        if "max_steer_rate" in item:
+            kw["max_steer_rate"] = F.number(item["max_steer_rate"], at("max_steer_rate"), positive=True, unit="rad/s")
+    if wtype == "castor":
+        if "trail" not in item:
+            raise where.error("castor wheels need 'trail' (m > 0, contact point behind the steering axis)")
+        kw["trail"] = F.number(item["trail"], at("trail"), positive=True, unit="m")
+    if wtype == "swedish" and "roller" in item:
+        g = F.angle(item["roller"], at("roller"))
+        if not -math.pi / 2 + 1e-9 < g < math.pi / 2 - 1e-9:
+            raise at("roller").error(f"roller angle must lie strictly between -90 and 90 deg, got {math.degrees(g):g} deg")
+        kw["roller"] = g
+    return Wheel(**kw)

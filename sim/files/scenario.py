@@ -1,0 +1,381 @@
+"""Scenario files: a robot, a step, a duration, a command script and checks.
+
+See README "Scenario file".  Loading validates everything up front, so a run
+never fails half-way on bad input.
+"""
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import math
+import os
+from dataclasses import dataclass, replace
+
+from sim.files import fields as F
+from sim.engine.simulator import ALIGN_POLICIES, DEFAULT_ALIGN_TOLERANCE
+from sim.errors import InputError
+from sim.files.robotfile import load_robot, robot_from_data
+from sim.model.robot import Robot
+from sim.files.yamlread import load_file
+
+MAX_STEPS = 10 ** 9
+_KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "script",
+         "commands", "checks", "odometry", "description")
+
+
+@dataclass(frozen=True)
+class Command:
+    """One script entry, held from ``at`` (s) until the next.
+
+    kind : ``twist`` (value (vx, vy, omega)), ``wheels`` (value {name: {"spin"?, "steer"?}})
+    or ``stop``.
+    """
+
+    at: float
+    kind: str
+    value: object = None
+    line: int | None = None
+
+
+@dataclass(frozen=True)
+class Check:
+    """A pass/fail condition on a run.
+
+    kind : ``pose`` (at, pose, tolerance), ``slip_below`` / ``slip_above``
+    (threshold m/s, over the run or at ``at``), ``wheel`` (at, name, steer
+    and/or spin with tolerances), ``odometry_error_below`` (position m, heading rad).
+    """
+
+    kind: str
+    at: float | None
+    params: dict
+    line: int | None = None
+    text: str = ""
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario.  ``steps`` = number of rows (t = 0 .. duration inclusive)."""
+
+    robot: Robot
+    step: float
+    duration: float
+    start: tuple
+    align: str
+    align_tolerance: float
+    script: tuple
+    checks: tuple
+    source: str
+    robot_hash: str
+    scenario_hash: str
+    odometry: object = None
+    description: str = ""
+
+    @property
+    def steps(self) -> int:
+        return int(round(self.duration / self.step)) + 1
+
+
+def _hash_bytes(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()[:16]
+
+
+def load_scenario(path: str | os.PathLike) -> Scenario:
+    """Read and validate a scenario file.  Raises :class:`InputError`."""
+    source = os.fspath(path)
+    data = load_file(source)
+    with open(source, "rb") as fh:
+        scen_hash = _hash_bytes(fh.read())
+    return scenario_from_data(data, source, scen_hash)
+
+
+def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> Scenario:
+    where = F.Where(source, "", getattr(data, "line", 1) or 1)
+    if data is None:
+        raise where.error("empty scenario; expected a mapping with robot, step, duration, script")
+    data = F.expect_map(data, where, "a scenario mapping")
+    F.check_keys(data, _KEYS, where, required=("robot", "step", "duration"))
+    at = lambda k: where.at(data, k)
+    if base_dir is None:
+        base_dir = os.getcwd() if source == "<inline>" else os.path.dirname(os.path.abspath(source))
+    robot, robot_hash = _robot(data["robot"], at("robot"), base_dir)
+    step = F.number(data["step"], at("step"), positive=True, unit="s")
+    duration = F.number(data["duration"], at("duration"), nonnegative=True, unit="s")
+    nsteps = duration / step
+    if nsteps > MAX_STEPS:
+        raise at("duration").error(f"duration/step means {nsteps:.3g} steps; at most {MAX_STEPS:.0e} are allowed")
+    if abs(nsteps - round(nsteps)) > 1e-6 * max(1.0, nsteps):
+        raise at("duration").error(f"duration {duration:g} s is not a whole number of steps of {step:g} s")
+    start = (0.0, 0.0, 0.0)
+    if "start" in data:
+        sw = at("start")
+        sm = F.expect_map(data["start"], sw, "a mapping {x, y, theta}")
+        F.check_keys(sm, ("x", "y", "theta", "steer"), sw)
+        start = (F.number(sm.get("x", 0.0), sw.at(sm, "x"), unit="m"),
+                 F.number(sm.get("y", 0.0), sw.at(sm, "y"), unit="m"),
+                 F.angle(sm.get("theta", 0.0), sw.at(sm, "theta")))
+        if "steer" in sm:
+            robot = _start_steer(robot, sm["steer"], sw.at(sm, "steer"))
+    align = F.choice(data["align"], ALIGN_POLICIES, at("align")) if "align" in data else "wait"
+    tol = DEFAULT_ALIGN_TOLERANCE
+    if "align_tolerance" in data:
+        tol = F.angle(data["align_tolerance"], at("align_tolerance"))
+        if tol <= 0:
+            raise at("align_tolerance").error("must be > 0")
+    if "script" in data and "commands" in data:
+        raise where.error("give either 'script' or 'commands' (a CSV command log), not both")
+    if "commands" in data:
+        script = _commands_csv(data["commands"], at("commands"), base_dir, robot)
+    elif "script" in data:
+        script = _script(data["script"], at("script"), robot)
+    else:
+        raise where.error("missing 'script' (or 'commands', a CSV command log)")
+    for c in script:
+        if c.at > duration + 1e-12:
+            raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
+                             f"({duration:g} s); shorten the script or lengthen 'duration'")
+    checks = _checks(data.get("checks", []), at("checks"), robot, duration) if "checks" in data else ()
+    odometry = None
+    if "odometry" in data:
+        from sim.files.odometryfile import odometry_from_data  # optional feature, own module
+        odometry = odometry_from_data(data["odometry"], at("odometry"), robot)
+    desc = data.get("description", "")
+    if not isinstance(desc, str):
+        raise at("description").error("expected text")
+    return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
+                    source, robot_hash, scen_hash, odometry, desc)
+
+
+def _start_steer(robot, value, where):
+    """The robot with other starting angles for its steered wheels and castors."""
+    m = F.expect_map(value, where, "a mapping of wheel name to starting angle")
+    wheels = list(robot.wheels)
+    for name, v in m.items():
+        w = where.at(m, name)
+        if name not in robot.index:
+            raise w.error(f"no wheel named '{name}'{F.suggest(name, robot.index)}")
+        wheel = robot.wheel(name)
+        if wheel.type not in ("steered", "castor"):
+            raise w.error(f"wheel '{name}' is {wheel.type}; only steered wheels and castors have a starting angle")
+        h = F.angle(v, w)
+        lo, hi = wheel.steer_limits
+        if not lo <= h <= hi:
+            raise w.error("starting angle is outside the wheel's steer_limits")
+        wheels[robot.index[name]] = replace(wheel, heading=h)
+    return replace(robot, wheels=tuple(wheels))
+
+
+def _robot(value, where, base_dir):
+    if isinstance(value, str):
+        path = value if os.path.isabs(value) else os.path.join(base_dir, value)
+        if not os.path.isfile(path):
+            raise where.error(f"robot file '{value}' not found (looked for {os.path.normpath(path)})")
+        robot = load_robot(os.path.relpath(path) if not os.path.isabs(value) else path)
+        with open(path, "rb") as fh:
+            return robot, _hash_bytes(fh.read())
+    if isinstance(value, dict):
+        robot = robot_from_data(value, where.source, where)
+        return robot, _hash_bytes(repr(sorted(value.items())).encode())
+    raise where.error(f"expected a robot file path or an inline robot mapping, got {F.describe(value)}")
+
+
+def _time(value, where, what="at") -> float:
+    return F.number(value, where, nonnegative=True, unit="s")
+
+
+def _script(items, where, robot):
+    items = F.expect_list(items, where, "a list of timed commands")
+    out, last = [], -math.inf
+    for i, item in enumerate(items):
+        w = where.at(items, i)
+        item = F.expect_map(item, w, "a command {at, twist | wheels | stop}")
+        F.check_keys(item, ("at", "twist", "wheels", "stop"), w, required=("at",))
+        t = _time(item["at"], w.at(item, "at"))
+        if t <= last:
+            raise w.at(item, "at").error(f"'at' must increase down the script: {t:g} s follows {last:g} s")
+        last = t
+        kinds = [k for k in ("twist", "wheels", "stop") if k in item]
+        if len(kinds) != 1:
+            raise w.error("each entry needs exactly one of twist, wheels, stop")
+        kind = kinds[0]
+        if kind == "twist":
+            out.append(Command(t, "twist", _twist(item["twist"], w.at(item, "twist")), w.line))
+        elif kind == "wheels":
+            out.append(Command(t, "wheels", _wheels(item["wheels"], w.at(item, "wheels"), robot), w.line))
+        else:
+            if F.boolean(item["stop"], w.at(item, "stop")) is not True:
+                raise w.at(item, "stop").error("write 'stop: true' (or leave the entry out)")
+            out.append(Command(t, "stop", None, w.line))
+    return out
+
+
+def _twist(value, where):
+    m = F.expect_map(value, where, "a twist {vx, vy, omega}")
+    F.check_keys(m, ("vx", "vy", "omega"), where)
+    return (F.number(m.get("vx", 0.0), where.at(m, "vx"), unit="m/s"),
+            F.number(m.get("vy", 0.0), where.at(m, "vy"), unit="m/s"),
+            F.angle(m.get("omega", 0.0), where.at(m, "omega")))
+
+
+def _wheels(value, where, robot):
+    m = F.expect_map(value, where, "a mapping of wheel name to spin or {spin, steer}")
+    out = {}
+    for name, cmd in m.items():
+        w = where.at(m, name)
+        if name not in robot.index:
+            raise w.error(f"no wheel named '{name}'{F.suggest(name, robot.index)}; wheels: {', '.join(robot.index)}")
+        wheel = robot.wheel(name)
+        if isinstance(cmd, dict):
+            F.check_keys(cmd, ("spin", "steer"), w)
+            c = {}
+            if "spin" in cmd:
+                c["spin"] = F.number(cmd["spin"], w.at(cmd, "spin"), unit="rad/s")
+            if "steer" in cmd:
+                c["steer"] = F.angle(cmd["steer"], w.at(cmd, "steer"))
+        else:
+            c = {"spin": F.number(cmd, w, unit="rad/s")}
+        if "spin" in c and not wheel.driven:
+            raise w.error(f"wheel '{name}' is not driven ({wheel.type}); it takes no spin command")
+        if "steer" in c and wheel.type != "steered":
+            raise w.error(f"wheel '{name}' is {wheel.type}, not steered; it takes no steer command")
+        out[name] = c
+    return out
+
+
+def _commands_csv(value, where, base_dir, robot):
+    if not isinstance(value, str):
+        raise where.error("expected the path of a CSV command log")
+    path = value if os.path.isabs(value) else os.path.join(base_dir, value)
+    src = os.path.relpath(path) if not os.path.isabs(value) else path
+    try:
+        with open(path, "rb") as fb:
+            raw = fb.read()
+    except OSError:
+        raise where.error(f"command log '{value}' not found") from None
+    try:
+        fh = io.StringIO(raw.decode("utf-8"), newline="")
+    except UnicodeDecodeError as exc:
+        raise InputError(src, raw[: exc.start].count(b"\n") + 1, "command log is not UTF-8 text") from None
+    out = []
+    with fh:
+        reader = csv.reader(fh, strict=True)
+        header = F.csv_header(reader, src, "empty command log; expected a header row starting with t")
+        if not header or header[0] != "t":
+            raise InputError(src, 1, "the first column must be 't' (s)")
+        cols = header[1:]
+        twist_cols = {"vx", "vy", "omega"}
+        is_twist = bool(cols) and set(cols) <= twist_cols
+        if not is_twist:
+            for c in cols:
+                name, _, part = c.partition(".")
+                if c in twist_cols:
+                    raise InputError(src, 1, "a command log holds either twist columns (vx, vy, omega) or wheel columns (NAME.spin, NAME.steer), not both")
+                if name not in robot.index or part not in ("spin", "steer"):
+                    raise InputError(src, 1, f"unknown column '{c}'{F.suggest(c, [n + '.spin' for n in robot.index])}; "
+                                     "allowed: t, vx, vy, omega, or NAME.spin / NAME.steer per wheel")
+                wh = robot.wheel(name)
+                if part == "spin" and not wh.driven:
+                    raise InputError(src, 1, f"column '{c}': wheel '{name}' is not driven")
+                if part == "steer" and wh.type != "steered":
+                    raise InputError(src, 1, f"column '{c}': wheel '{name}' is not steered")
+        last = -math.inf
+        for ln, row in F.csv_records(reader, src, len(header)):
+            vals = [F.cell_number(cell, src, ln, c) for c, cell in zip(header, row)]
+            t = vals[0]
+            if t < 0 or t <= last:
+                raise InputError(src, ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")
+            last = t
+            if is_twist:
+                d = dict(zip(cols, vals[1:]))
+                out.append(Command(t, "twist", (d.get("vx", 0.0), d.get("vy", 0.0), d.get("omega", 0.0)), ln))
+            else:
+                cmds = {}
+                for c, v in zip(cols, vals[1:]):
+                    name, _, part = c.partition(".")
+                    cmds.setdefault(name, {})[part] = v
+                out.append(Command(t, "wheels", cmds, ln))
+    if not out:
+        raise InputError(src, 2, "command log has no rows")
+    return out
+
+
+def _check_time(item, w, duration):
+    if "at" not in item:
+        return None
+    v = item["at"]
+    if v == "end":
+        return duration
+    t = _time(v, w.at(item, "at"))
+    if t > duration + 1e-12:
+        raise w.at(item, "at").error(f"check time {t:g} s is after the end of the run ({duration:g} s)")
+    return t
+
+
+def _checks(items, where, robot, duration):
+    items = F.expect_list(items, where, "a list of checks")
+    out = []
+    kinds = ("pose", "slip_below", "slip_above", "wheel", "odometry_error_below")
+    for i, item in enumerate(items):
+        w = where.at(items, i)
+        item = F.expect_map(item, w, "a check mapping")
+        present = [k for k in kinds if k in item]
+        if len(present) != 1:
+            raise w.error(f"each check needs exactly one of {', '.join(kinds)}")
+        kind = present[0]
+        if kind == "pose":
+            F.check_keys(item, ("at", "pose", "tolerance"), w, required=("at", "tolerance"))
+            t = _check_time(item, w, duration)
+            pw = w.at(item, "pose")
+            pm = F.expect_map(item["pose"], pw, "a pose {x, y, theta}")
+            F.check_keys(pm, ("x", "y", "theta"), pw)
+            if not pm:
+                raise pw.error("give at least one of x, y, theta")
+            pose = {}
+            for k in ("x", "y"):
+                if k in pm:
+                    pose[k] = F.number(pm[k], pw.at(pm, k), unit="m")
+            if "theta" in pm:
+                pose["theta"] = F.angle(pm["theta"], pw.at(pm, "theta"))
+            tol = _tolerance(item["tolerance"], w.at(item, "tolerance"), ("position", "heading"))
+            out.append(Check("pose", t, {"pose": pose, "tolerance": tol}, w.line))
+        elif kind in ("slip_below", "slip_above"):
+            F.check_keys(item, (kind, "at"), w)
+            thr = F.number(item[kind], w.at(item, kind), nonnegative=True, unit="m/s")
+            out.append(Check(kind, _check_time(item, w, duration), {"threshold": thr}, w.line))
+        elif kind == "wheel":
+            F.check_keys(item, ("at", "wheel", "steer", "spin", "tolerance"), w, required=("at", "tolerance"))
+            t = _check_time(item, w, duration)
+            nm = item["wheel"]
+            if nm not in robot.index:
+                raise w.at(item, "wheel").error(f"no wheel named '{nm}'{F.suggest(nm, robot.index)}")
+            p = {"wheel": nm}
+            if "steer" in item:
+                p["steer"] = F.angle(item["steer"], w.at(item, "steer"))
+            if "spin" in item:
+                p["spin"] = F.number(item["spin"], w.at(item, "spin"), unit="rad/s")
+            if len(p) == 1:
+                raise w.error("a wheel check needs steer and/or spin")
+            p["tolerance"] = _tolerance(item["tolerance"], w.at(item, "tolerance"), ("steer", "spin"))
+            out.append(Check("wheel", t, p, w.line))
+        else:
+            F.check_keys(item, (kind,), w)
+            tol = _tolerance(item[kind], w.at(item, kind), ("position", "heading"))
+            out.append(Check(kind, None, {"tolerance": tol}, w.line))
+    return out
+
+
+def _tolerance(value, where, keys):
+    m = F.expect_map(value, where, f"a tolerance mapping with {' and/or '.join(keys)}")
+    F.check_keys(m, keys, where)
+    if not m:
+        raise where.error(f"give {' and/or '.join(keys)}")
+    out = {}
+    for k in m:
+        if k in ("heading", "steer"):
+            out[k] = F.angle(m[k], where.at(m, k))
+            if out[k] < 0:
+                raise where.at(m, k).error("must be >= 0")
+        else:
+            out[k] = F.number(m[k], where.at(m, k), nonnegative=True)
+    return out

@@ -1,0 +1,120 @@
+"""Baselines: run a scenario against a recorded trace, or record one.
+
+A baseline is an ordinary trace CSV plus its sidecar ``.meta.json``
+(:mod:`sim.tracemeta`).  :func:`run_against` runs the scenario with the
+baseline's decimation (``every`` in the sidecar), compares the new trace
+with :func:`sim.tracediff.compare` and, when they diverge, says what changed
+in between (scenario or robot content, step, version).  :func:`record`
+writes a baseline and says whether it changed.
+
+Baselines are kept small: a run of more than ``MAX_ROWS`` steps keeps every
+N-th row, N = ceil(steps / MAX_ROWS) (the last row always).
+"""
+from __future__ import annotations
+
+import contextlib
+import filecmp
+import math
+import os
+import shutil
+import signal
+import tempfile
+import threading
+
+from sim.errors import InputError
+from sim.runs.runner import run_scenario
+from sim.traces.tolerance import DEFAULT_TOLERANCE
+from sim.traces.diff import compare
+from sim.traces.meta import meta_path, provenance_notes, read_meta
+
+MAX_ROWS = 2000
+
+
+def baseline_every(scen) -> int:
+    """Decimation used when recording a baseline of ``scen``."""
+    return max(1, math.ceil(scen.steps / MAX_ROWS))
+
+
+def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every=None):
+    """Run ``scen`` and compare its trace with ``baseline``.
+
+    Returns ``(run_result, diff_report, notes)``; ``notes`` (list of str) name
+    the likely causes of a divergence.  The trace goes to ``csv`` if given,
+    else to a temporary file that is removed.  ``every`` defaults to the
+    baseline's.
+    """
+    baseline = os.fspath(baseline)
+    if not os.path.isfile(baseline):
+        raise InputError(baseline, None, "baseline not found (record one with 'trundle batch --update' "
+                                         "or 'trundle run --csv')")
+    meta = read_meta(baseline)
+    if every is None:
+        every = meta.get("every", 1) if meta else 1
+    tmp = None
+    if csv is None:
+        tmp = tempfile.mkdtemp(prefix="trundle-")
+        csv = os.path.join(tmp, "run.csv")
+    try:
+        res = run_scenario(scen, csv=csv, every=every)
+        rep = compare(baseline, csv, tol, rules)
+        if tmp:
+            rep.path_b = "(this run)"
+    finally:
+        if tmp:
+            shutil.rmtree(tmp, ignore_errors=True)
+    notes = provenance_notes(meta, scen, every) if rep.diverged else []
+    return res, rep, notes
+
+
+@contextlib.contextmanager
+def _uninterrupted():
+    """Hold back SIGINT and SIGTERM (Unix, main thread) until the block is done."""
+    block = getattr(signal, "pthread_sigmask", None)
+    if block is None or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    old = block(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+    try:
+        yield
+    finally:
+        block(signal.SIG_SETMASK, old)
+
+
+def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
+    """Write the baseline of ``scen`` at ``baseline`` (and its sidecar).
+
+    Returns ``(run_result, change, report)``: change is ``new``, ``changed``
+    (the trace differs), ``metadata`` (same trace bytes, the sidecar differs:
+    say a new robot hash) or ``unchanged``; ``report`` compares the old
+    baseline with the new trace when the trace changed (else None).
+    Files are replaced atomically; an unchanged baseline is not touched, and
+    nothing is written when the run was interrupted (change None).
+    """
+    baseline = os.fspath(baseline)
+    folder = os.path.dirname(os.path.abspath(baseline))
+    os.makedirs(folder, exist_ok=True)
+    tmp = tempfile.mkdtemp(prefix=".trundle-", dir=folder)
+    try:
+        new = os.path.join(tmp, "new.csv")
+        res = run_scenario(scen, csv=new, every=baseline_every(scen))
+        if res.interrupted:  # a cut-off run must never replace a baseline
+            return res, None, None
+        old_exists = os.path.isfile(baseline)
+        same_csv = old_exists and filecmp.cmp(new, baseline, shallow=False)
+        same = (same_csv and os.path.isfile(meta_path(baseline))
+                and filecmp.cmp(meta_path(new), meta_path(baseline), shallow=False))
+        report = None
+        if old_exists and not same_csv:
+            try:
+                report = compare(baseline, new, tol, rules)
+            except InputError:
+                report = None                      # the old file was broken: just replace it
+        with _uninterrupted():  # the trace and its sidecar change together
+            if not same_csv:
+                os.replace(new, baseline)
+            if not same:
+                os.replace(meta_path(new), meta_path(baseline))
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    change = ("unchanged" if same else "metadata" if same_csv else "changed" if old_exists else "new")
+    return res, change, report

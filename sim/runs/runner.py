@@ -1,0 +1,357 @@
+"""Run a scenario: drive the engine through the script, stream the trace,
+evaluate the checks and summarise.
+
+The result is a :class:`RunResult`; with ``keep=True`` it also holds the whole
+trace as numpy arrays (one array per CSV column), for scripts and tests.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from sim.engine.chunked import CHUNK, Block, ChunkedSimulator, supported
+from sim.engine.simulator import Simulator
+from sim.traces.floatfmt import fixed
+from sim.files.scenario import Scenario
+from sim.traces.writer import TraceWriter, columns
+from sim.traces.meta import write_meta
+
+
+@dataclass
+class CheckResult:
+    """One check's outcome: ``text`` says what was checked, measured and expected."""
+
+    passed: bool
+    text: str
+    line: int | None = None
+
+
+@dataclass
+class RunResult:
+    """What a run produced.  Lengths in m, angles in rad, slip in m/s."""
+
+    scenario: Scenario
+    rows: int = 0
+    distance: float = 0.0
+    final_pose: tuple = (0.0, 0.0, 0.0)
+    peak_slip: float = 0.0
+    peak_slip_t: float = 0.0
+    peak_shortfall: float = 0.0
+    peak_shortfall_twist: tuple = (0.0, 0.0, 0.0)
+    peak_shortfall_t: float = 0.0
+    underdetermined_t: float | None = None
+    checks: list = field(default_factory=list)
+    trace: dict | None = None
+    interrupted: bool = False
+    odometry: dict | None = None
+
+    @property
+    def passed(self) -> bool:
+        return all(c.passed for c in self.checks)
+
+
+def _wrap(a):
+    return (a + math.pi) % (2 * math.pi) - math.pi
+
+
+class _Checks:
+    def __init__(self, scen: Scenario):
+        self.scen = scen
+        self.at_rows = {}
+        for c in scen.checks:
+            if c.at is not None:
+                self.at_rows[int(round(c.at / scen.step))] = None
+
+    def evaluate(self, res: RunResult, odo_summary) -> list:
+        out = []
+        dt = self.scen.step
+        for c in self.scen.checks:
+            row = self.at_rows.get(int(round(c.at / dt))) if c.at is not None else None
+            if c.at is not None and row is None:
+                out.append(CheckResult(False, f"{c.kind} at t={c.at:g} s: run ended before this time", c.line))
+                continue
+            out.append(getattr(self, "_" + c.kind)(c, row, res, odo_summary))
+        return out
+
+    def _pose(self, c, row, res, _):
+        want = c.params["pose"]
+        tol = c.params["tolerance"]
+        ok, parts = True, []
+        if "x" in want or "y" in want:
+            dx = row.pose[0] - want.get("x", row.pose[0])
+            dy = row.pose[1] - want.get("y", row.pose[1])
+            err = math.hypot(dx, dy)
+            lim = tol.get("position", 0.0)
+            ok &= err <= lim
+            parts.append(f"position ({fixed(row.pose[0], 4)}, {fixed(row.pose[1], 4)}) m vs "
+                         f"({fixed(want.get('x', row.pose[0]), 4)}, {fixed(want.get('y', row.pose[1]), 4)}): "
+                         f"off {err:.3g} m, allowed {lim:g}")
+        if "theta" in want:
+            err = abs(_wrap(row.pose[2] - want["theta"]))
+            lim = tol.get("heading", 0.0)
+            ok &= err <= lim
+            parts.append(f"heading {fixed(math.degrees(row.pose[2]))} deg vs {fixed(math.degrees(want['theta']))}: "
+                         f"off {math.degrees(err):.3g} deg, allowed {math.degrees(lim):g}")
+        return CheckResult(bool(ok), f"pose at t={c.at:g} s: " + "; ".join(parts), c.line)
+
+    def _slip(self, c, row, res, above):
+        thr = c.params["threshold"]
+        if row is None:
+            val, when = res.peak_slip, f"peak {res.peak_slip:.3g} m/s at t={res.peak_slip_t:g} s"
+        else:
+            val, when = row.slip, f"slip {row.slip:.3g} m/s at t={c.at:g} s"
+        ok = val > thr if above else val < thr
+        rel = "above" if above else "below"
+        return CheckResult(bool(ok), f"slip {rel} {thr:g} m/s: {when}", c.line)
+
+    def _slip_below(self, c, row, res, _):
+        return self._slip(c, row, res, False)
+
+    def _slip_above(self, c, row, res, _):
+        return self._slip(c, row, res, True)
+
+    def _wheel(self, c, row, res, _):
+        p = c.params
+        i = self.scen.robot.index[p["wheel"]]
+        tol = p["tolerance"]
+        ok, parts = True, []
+        if "steer" in p:
+            err = abs(_wrap(row.steer[i] - p["steer"]))
+            lim = tol.get("steer", 0.0)
+            ok &= err <= lim
+            parts.append(f"steer {math.degrees(row.steer[i]):.3f} deg vs {math.degrees(p['steer']):.3f}: "
+                         f"off {math.degrees(err):.3g} deg, allowed {math.degrees(lim):g}")
+        if "spin" in p:
+            err = abs(row.spin[i] - p["spin"])
+            lim = tol.get("spin", 0.0)
+            ok &= err <= lim
+            parts.append(f"spin {row.spin[i]:.4f} rad/s vs {p['spin']:.4f}: off {err:.3g}, allowed {lim:g}")
+        return CheckResult(bool(ok), f"wheel {p['wheel']} at t={c.at:g} s: " + "; ".join(parts), c.line)
+
+    def _odometry_error_below(self, c, row, res, odo):
+        tol = c.params["tolerance"]
+        if odo is None:
+            return CheckResult(False, "odometry error: the scenario has no odometry section", c.line)
+        ok, parts = True, []
+        if "position" in tol:
+            ok &= odo["peak_position_error"] <= tol["position"]
+            parts.append(f"peak position error {odo['peak_position_error']:.4g} m, allowed {tol['position']:g}")
+        if "heading" in tol:
+            ok &= odo["peak_heading_error"] <= tol["heading"]
+            parts.append(f"peak heading error {math.degrees(odo['peak_heading_error']):.4g} deg, "
+                         f"allowed {math.degrees(tol['heading']):g}")
+        return CheckResult(bool(ok), "odometry: " + "; ".join(parts), c.line)
+
+
+def apply_command(sim: Simulator, cmd) -> None:
+    """Apply one script :class:`~sim.scenario.Command` to a simulator."""
+    if cmd.kind == "twist":
+        sim.command_twist(cmd.value)
+    elif cmd.kind == "wheels":
+        sim.command_wheels(cmd.value)
+    else:
+        sim.stop()
+
+
+def entry_steps(script, dt: float) -> list:
+    """Step index at which each script entry takes effect: the first k with k dt >= at."""
+    out = []
+    for c in script:
+        k = max(0, math.ceil(c.at / dt - 1e-9))
+        while k * dt + 1e-9 * dt < c.at:
+            k += 1
+        while k > 0 and (k - 1) * dt + 1e-9 * dt >= c.at:
+            k -= 1
+        out.append(k)
+    return out
+
+
+def _segments(scen: Scenario, chunk: int):
+    """(first step, number of steps, commands to apply first) covering the run."""
+    ks = entry_steps(scen.script, scen.step)
+    n = scen.steps
+    j, k = 0, 0
+    while k < n:
+        todo = []
+        while j < len(ks) and ks[j] <= k:
+            todo.append(scen.script[j])
+            j += 1
+        nxt = ks[j] if j < len(ks) else n
+        m = min(nxt, n, k + chunk) - k
+        yield k, m, todo
+        k += m
+
+
+def _reference_blocks(scen, odo, on_row, block_rows=1024):
+    sim = Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
+    for k0, m, todo in _segments(scen, block_rows):
+        for c in todo:
+            apply_command(sim, c)
+        rows, extra = [], []
+        try:
+            for _ in range(m):
+                row = sim.step()
+                rows.append(row)
+                if odo:
+                    extra.append(odo.update(row))
+                if on_row is not None:
+                    on_row(row)
+        except KeyboardInterrupt:
+            rows = rows[:len(extra)] if odo else rows
+            if rows:  # an interrupted run keeps the rows made so far
+                yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
+            raise
+        yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
+
+
+def _chunked_blocks(scen, odo):
+    """Blocks of about CHUNK rows; short script segments are planned one by one
+    and moved together."""
+    sim = ChunkedSimulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
+    plans, rows = [], 0
+    for k0, m, todo in _segments(scen, CHUNK):
+        for c in todo:
+            apply_command(sim, c)
+        plans.append(sim.plan(m))
+        rows += m
+        if rows >= CHUNK or k0 + m >= scen.steps:
+            block = sim.move(plans)
+            plans, rows = [], 0
+            yield block, (odo.update_block(block) if odo else None)
+
+
+def use_chunked(scen: Scenario, on_row=None) -> bool:
+    """Whether :func:`run_scenario` takes the chunked engine (``engine='auto'``)."""
+    if on_row is not None or not supported(scen.robot):
+        return False
+    if scen.odometry is not None:
+        from sim.odometry.encoders import Odometer
+        return hasattr(Odometer, "update_block")
+    return True
+
+
+def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: bool = False,
+                 on_row=None, engine: str = "auto") -> RunResult:
+    """Run ``scen`` to the end.
+
+    Parameters
+    ----------
+    csv : path or None
+        Stream the trace there (written as ``csv + '.part'`` and renamed when
+        done, also when interrupted; removed if the run crashes).
+    every : int
+        Keep every N-th row in the CSV / kept trace (the last row always).
+    keep : bool
+        Also return the trace as arrays in ``RunResult.trace`` (memory grows
+        with the run; use the CSV for long runs).
+    on_row : callable(StepResult) or None
+        Called after every step (a renderer, a progress bar); implies the
+        reference engine.
+    engine : ``auto`` | ``reference`` | ``chunked``
+        ``auto`` takes the chunked engine whenever it applies.
+    """
+    odo = None
+    if scen.odometry is not None:
+        from sim.odometry.encoders import Odometer
+        odo = Odometer(scen.odometry, scen.robot, scen.step, scen.start)
+    fast = use_chunked(scen, on_row) if engine == "auto" else engine == "chunked"
+    blocks = _chunked_blocks(scen, odo) if fast else _reference_blocks(scen, odo, on_row)
+    extra_cols = tuple(odo.columns) if odo else ()
+    header = columns(scen.robot, extra_cols)
+    writer = TraceWriter(csv, header) if csv else None
+    kept = [] if keep else None
+    res = RunResult(scen)
+    checks = _Checks(scen)
+    n = scen.steps
+    last_pos = None
+    try:
+        for block, extra in blocks:
+            if writer or kept is not None:
+                k = block.k0 + np.arange(len(block))
+                sel = (k % every == 0) | (k == n - 1)
+                vals = block.values()
+                if extra is not None:
+                    vals = np.hstack([vals, extra])
+                vals = vals[sel]
+                if writer:
+                    writer.write_block(vals)
+                if kept is not None:
+                    kept.append(vals)
+            _account(res, checks, block, last_pos)  # after writing: the summary never claims unwritten rows
+            last_pos = block.pose[-1, :2]
+    except KeyboardInterrupt:
+        res.interrupted = True
+    except BaseException:
+        if writer:
+            writer.abort()
+        raise
+    if writer:
+        writer.close()
+        write_meta(csv, scen, header, every, writer.rows, not res.interrupted)
+    if odo:
+        res.odometry = odo.summary()
+    res.checks = checks.evaluate(res, res.odometry)
+    if kept is not None:
+        arr = np.vstack(kept) if kept else np.zeros((0, len(header)))
+        res.trace = {c: arr[:, i] for i, c in enumerate(header)}
+    return res
+
+
+def _metric(robot) -> np.ndarray:
+    """Weights making a twist error one number: (1, 1, L) with L the base size (m)."""
+    return np.array([1.0, 1.0, robot.size])
+
+
+def _account(res: RunResult, checks, block, last_pos) -> None:
+    """Fold one block of rows into the running summary."""
+    m = len(block)
+    for k in checks.at_rows:
+        if block.k0 <= k < block.k0 + m:
+            checks.at_rows[k] = block.row(k - block.k0)
+    p = block.pose[:, :2]
+    steps = np.diff(p, axis=0) if last_pos is None else np.diff(np.vstack([last_pos, p]), axis=0)
+    res.distance += float(np.sum(np.hypot(steps[:, 0], steps[:, 1])))
+    i = int(np.argmax(block.slip))
+    if block.slip[i] > res.peak_slip:
+        res.peak_slip, res.peak_slip_t = float(block.slip[i]), float(block.t[i])
+    w = block.shortfall * _metric(res.scenario.robot)
+    j = int(np.argmax(np.einsum("ij,ij->i", w, w)))
+    sf = float(np.sqrt(w[j] @ w[j]))
+    if sf > res.peak_shortfall:
+        res.peak_shortfall, res.peak_shortfall_t = sf, float(block.t[j])
+        res.peak_shortfall_twist = tuple(float(v) for v in block.shortfall[j])
+    low = np.flatnonzero(block.rank < 3)
+    if len(low) and res.underdetermined_t is None:
+        res.underdetermined_t = float(block.t[low[0]])
+    res.rows = block.k0 + m
+    res.final_pose = tuple(float(v) for v in block.pose[-1])
+
+
+def summary_text(res: RunResult) -> str:
+    """The short, human summary printed by ``trundle run``."""
+    s = res.scenario
+    x, y, th = res.final_pose
+    lines = [f"scenario  {s.source}  ({s.robot.name}, {res.rows} rows: t = 0 to "
+             f"{(res.rows - 1) * s.step:g} s in steps of {s.step:g} s{', INTERRUPTED' if res.interrupted else ''})",
+             f"distance  {res.distance:.4f} m",
+             f"final     x {fixed(x, 4)} m  y {fixed(y, 4)} m  theta {fixed(math.degrees(th))} deg",
+             f"peak slip {res.peak_slip:.4g} m/s at t={res.peak_slip_t:g} s"]
+    if res.peak_shortfall > 1e-9:
+        vx, vy, w = res.peak_shortfall_twist
+        lines.append(f"twist     requests the base cannot follow: largest shortfall at t={res.peak_shortfall_t:g} s, "
+                     f"vx {vx:.4g} m/s, vy {vy:.4g} m/s, omega {w:.4g} rad/s (requested minus followed)")
+    if res.underdetermined_t is not None:
+        lines.append(f"note      from t={res.underdetermined_t:g} s the driven wheels left some motion undetermined; "
+                     "the minimum-norm motion was used")
+    if res.odometry:
+        o = res.odometry
+        lines.append(f"odometry  final error {o['final_position_error']:.4g} m, "
+                     f"{math.degrees(o['final_heading_error']):.4g} deg; peak {o['peak_position_error']:.4g} m, "
+                     f"{math.degrees(o['peak_heading_error']):.4g} deg")
+    for c in res.checks:
+        lines.append(f"{'PASS' if c.passed else 'FAIL'}      {c.text}")
+    if not res.checks:
+        lines.append("checks    none in this scenario")
+    return "\n".join(lines)

@@ -1,0 +1,148 @@
+"""The wheel equations: rolling and no-sliding constraint rows, and their stacks.
+
+All rows act on the body twist ``xi = [vx, vy, omega]`` (m/s, m/s, rad/s),
+i.e. on ``R(theta) xi_world``.  Written in the x/y/heading form used by the
+robot file; each equals the polar alpha/l/beta form of the textbook wheel
+equations with ``heading = alpha + beta - 90 deg`` (tests derive this
+symbolically).  For a wheel whose contact (or steering axis) is at (x, y) with
+heading h and roller angle g:
+
+rolling (driven wheels)
+    ``[cos(h+g), sin(h+g), x sin(h+g) - y cos(h+g)] . xi = r phidot cos g``
+no sliding (fixed and steered standard wheels)
+    ``[-sin h, cos h, x cos h + y sin h] . xi = 0``
+no sliding (castor, (x, y) the steering axis, contact ``trail`` behind it)
+    ``[-sin h, cos h, x cos h + y sin h - trail] . xi - trail * hdot = 0``
+
+The castor's heading is the textbook castor angle plus 180 deg: here positive
+spin rolls the wheel away from its trail, so a castor pulled forward settles
+at heading 0 with positive spin.  Swedish and ball wheels give no no-sliding
+row (their rollers, or the sphere, absorb it); ball wheels give no row at all.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from sim.model.robot import Robot
+
+
+def rolling_rows(x, y, heading, roller):
+    """Rolling rows, shape (..., 3), for arrays of shape (...) (m, rad)."""
+    c, s = np.cos(heading + roller), np.sin(heading + roller)
+    return np.stack([c, s, x * s - y * c], axis=-1)
+
+
+def sliding_rows(x, y, heading, trail=0.0):
+    """No-sliding rows, shape (..., 3); ``trail`` > 0 for castors (m)."""
+    c, s = np.cos(heading), np.sin(heading)
+    return np.stack([-s, c, x * c + y * s - trail], axis=-1)
+
+
+def contact_velocity(x, y, xi):
+    """Rigid-body velocity, shape (..., 2) m/s, of body points (x, y) for twist ``xi`` (..., 3)."""
+    xi = np.asarray(xi, dtype=float)
+    return np.stack([xi[..., 0] - xi[..., 2] * y, xi[..., 1] + xi[..., 2] * x], axis=-1)
+
+
+def castor_contact(x, y, heading, trail):
+    """Contact point (m), shape (..., 2), of castors with steering axis (x, y)."""
+    return np.stack([x - trail * np.cos(heading), y - trail * np.sin(heading)], axis=-1)
+
+
+@dataclass(frozen=True)
+class Stack:
+    """The stacked matrices of a base at one steering configuration.
+
+    Row blocks follow file order within each block.  Shapes: ``J1f`` (n_f, 3)
+    rolling rows of driven wheels of fixed angle (fixed, Swedish); ``J1s``
+    (n_s, 3) rolling rows of driven wheels of variable angle (steered,
+    castor); ``C1f`` (m_f, 3) no-sliding rows of fixed wheels; ``C1s``
+    (m_s, 3) of steered wheels; ``C1c`` (m_c, 3) of castors with ``C2`` the
+    (m_c,) trail lengths multiplying their steering rates; ``J2`` (n_f+n_s,)
+    ``r cos(gamma)`` of the driven wheels, so that
+    ``J1 xi = diag(J2) phidot``.  ``*_names`` hold the wheel names per block.
+    """
+
+    J1f: np.ndarray
+    J1s: np.ndarray
+    C1f: np.ndarray
+    C1s: np.ndarray
+    C1c: np.ndarray
+    C2: np.ndarray
+    J2: np.ndarray
+    J1f_names: tuple
+    J1s_names: tuple
+    C1f_names: tuple
+    C1s_names: tuple
+    C1c_names: tuple
+
+    @property
+    def J1(self) -> np.ndarray:
+        return np.vstack([self.J1f, self.J1s])
+
+    @property
+    def C1(self) -> np.ndarray:
+        """C1* = [C1f; C1s]: the no-sliding rows that restrict the body motion."""
+        return np.vstack([self.C1f, self.C1s])
+
+    @property
+    def driven_names(self) -> tuple:
+        return self.J1f_names + self.J1s_names
+
+
+def angles_with(robot: Robot, steer: dict | None = None) -> np.ndarray:
+    """Wheel headings, shape (n,) rad: the file's, with ``steer`` {name: rad} overriding."""
+    h = robot.arrays.heading.copy()
+    for name, value in (steer or {}).items():
+        h[robot.index[name]] = value
+    return h
+
+
+def stack(robot: Robot, heading=None) -> Stack:
+    """Stacked matrices at wheel headings ``heading`` (shape (n,), rad; default: the file's)."""
+    a = robot.arrays
+    h = a.heading if heading is None else np.asarray(heading, dtype=float)
+    roll = rolling_rows(a.x, a.y, h, a.roller)
+    slide = sliding_rows(a.x, a.y, h, a.trail)
+    names = np.array([w.name for w in robot.wheels], dtype=object)
+
+    def pick(rows, mask):
+        return rows[mask].reshape(-1, 3), tuple(names[mask])
+
+    fixed_angle = a.is_("fixed", "swedish") & a.driven
+    var_angle = a.is_("steered", "castor") & a.driven
+    J1f, nf = pick(roll, fixed_angle)
+    J1s, ns = pick(roll, var_angle)
+    C1f, cf = pick(slide, a.is_("fixed"))
+    C1s, cs = pick(slide, a.is_("steered"))
+    C1c, cc = pick(slide, a.is_("castor"))
+    r_cos = a.radius * np.cos(a.roller)
+    J2 = np.concatenate([r_cos[fixed_angle], r_cos[var_angle]])
+    return Stack(J1f, J1s, C1f, C1s, C1c, a.trail[a.is_("castor")], J2, nf, ns, cf, cs, cc)
+
+
+def motion_rows(robot: Robot, heading) -> tuple:
+    """Rows the engine solves: (A, kind, wheel) for one configuration.
+
+    Returns
+    -------
+    A : ndarray, shape (m, 3)
+        Rolling rows of driven wheels, then no-sliding rows of fixed and
+        steered wheels, each block in file order.
+    wheel : ndarray, shape (m,) int
+        Wheel index of each row.
+    rolling : ndarray, shape (m,) bool
+        True for rolling rows (right-hand side ``r cos(g) phidot``), False for
+        no-sliding rows (right-hand side 0).
+    """
+    a = robot.arrays
+    h = np.asarray(heading, dtype=float)
+    idx_r = np.flatnonzero(a.driven)
+    idx_s = np.flatnonzero(a.is_("fixed", "steered"))
+    A = np.vstack([rolling_rows(a.x[idx_r], a.y[idx_r], h[idx_r], a.roller[idx_r]).reshape(-1, 3),
+                   sliding_rows(a.x[idx_s], a.y[idx_s], h[idx_s]).reshape(-1, 3)])
+    wheel = np.concatenate([idx_r, idx_s])
+    rolling = np.concatenate([np.ones(len(idx_r), bool), np.zeros(len(idx_s), bool)])
+    return A, wheel, rolling
