@@ -14,7 +14,6 @@ import pytest
 
 from sim.runs.runner import run_scenario
 from sim.files.scenario import load_scenario
-from sim.traces.writer import BASE_COLUMNS
 
 ROBOTS = pathlib.Path(__file__).resolve().parents[1] / "scenarios" / "robots"
 
@@ -202,11 +201,13 @@ def test_csv_layout_blanks_and_determinism(cart_dir, cli):
     raw, header, rows = _read_csv("a.csv")
     assert raw == pathlib.Path("b.csv").read_bytes()          # byte-identical on rerun
     assert raw.endswith(b"\r\n") and raw.count(b"\r\n") == len(rows) + 1 and b"\n" not in raw.replace(b"\r\n", b"")
-    # header exactly as issue 3 lists it
-    want = ["t", "x", "y", "theta", "vx", "vy", "omega", "icr_x", "icr_y", "slip", "cmd_vx", "cmd_vy", "cmd_omega"]
+    # header as README "Trace columns" lists it
+    want = ["t", "x", "y", "theta", "vx", "vy", "omega", "icr_x", "icr_y", "slip", "cmd_vx", "cmd_vy", "cmd_omega",
+            "scale", "short_vx", "short_vy", "short_omega", "fit", "held", "rank"]
     for w in ("left", "right", "cf"):
-        want += [f"{w}.{f}" for f in ("spin_cmd", "spin", "steer_cmd", "steer", "slip_long", "slip_lat")]
-    assert header == want and tuple(header[:13]) == BASE_COLUMNS
+        want += [f"{w}.{f}" for f in ("spin_cmd", "spin", "steer_cmd", "steer", "slip_long", "slip_lat",
+                                      "angle", "to_go", "at_limit")]
+    assert header == want
     assert len(rows) == 201                                     # t = 0 .. 2 s inclusive
     col = {c: [r[i] for r in rows] for i, c in enumerate(header)}
     assert float(col["t"][0]) == 0.0 and float(col["t"][-1]) == pytest.approx(2.0)

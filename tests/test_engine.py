@@ -13,8 +13,6 @@ from hypothesis import strategies as st
 from sim import Simulator
 from sim.runs.runner import run_scenario, summary_text
 
-# run_scenario picks the chunked engine when it applies ("auto"); both must meet the references
-ENGINES = ["reference", "auto"]
 
 R_WHEEL, TRACK = 0.08, 0.44
 DIFF = f"""
@@ -49,8 +47,7 @@ def test_diff_drive_constant_spins_closed_form_arc(robot_from_yaml):
     np.testing.assert_allclose(sim.pose, want, rtol=0, atol=1e-9)
 
 
-@pytest.mark.parametrize("engine", ENGINES)
-def test_diff_drive_matches_solve_ivp(engine, robot_from_yaml, scenario_from_yaml, tmp_path):
+def test_diff_drive_matches_solve_ivp(robot_from_yaml, scenario_from_yaml, tmp_path):
     # Piecewise-constant wheel spins (a script), integrated segment by segment with
     # scipy.integrate.solve_ivp (RK45, tight tolerances) on the unicycle ODE.
     segments = [(0.0, 4.0, 6.0), (3.2, 5.5, 2.0), (6.5, -2.0, 3.0)]
@@ -58,7 +55,7 @@ def test_diff_drive_matches_solve_ivp(engine, robot_from_yaml, scenario_from_yam
     robot_file = tmp_path / "cart.yaml"
     robot_file.write_text(DIFF.replace("\n    ", "\n"))
     scen = scenario_from_yaml(tmp_path, f"robot: cart.yaml\nstep: 0.01\nduration: 10\nscript:\n{script}\n")
-    res = run_scenario(scen, keep=True, engine=engine)
+    res = run_scenario(scen, keep=True)
     s = np.zeros(3)
     bounds = [t for t, _, _ in segments] + [10.0]
     for (t0, wl, wr), t1 in zip(segments, bounds[1:]):
@@ -105,8 +102,7 @@ def test_bundled_car_zero_slip_once_aligned(repo_root):
     assert np.all(tr["front_left.slip_lat"][aligned] == 0.0) or np.max(np.abs(tr["front_left.slip_lat"][aligned])) < 1e-12
 
 
-@pytest.mark.parametrize("engine", ENGINES)
-def test_mecanum_twist_commands_give_lynch_park_wheel_speeds(engine, robot_from_yaml, scenario_from_yaml, tmp_path):
+def test_mecanum_twist_commands_give_lynch_park_wheel_speeds(robot_from_yaml, scenario_from_yaml, tmp_path):
     # Lynch & Park 2017, eq. (13.10) (from memory), read from the spin columns of a run.
     l, w, r = 0.2, 0.17, 0.05
     (tmp_path / "tote.yaml").write_text(f"""
@@ -119,7 +115,7 @@ wheels:
     twists = [(0.5, 0.0, 0.0), (0.0, -0.4, 0.0), (0.2, 0.3, 0.8), (-0.1, 0.0, -1.2)]
     script = "\n".join(f"  - {{at: {i}, twist: {{vx: {a}, vy: {b}, omega: {c}}}}}" for i, (a, b, c) in enumerate(twists))
     scen = scenario_from_yaml(tmp_path, f"robot: tote.yaml\nstep: 0.01\nduration: 4\nscript:\n{script}\n")
-    tr = run_scenario(scen, keep=True, engine=engine).trace
+    tr = run_scenario(scen, keep=True).trace
     H = np.array([[-l - w, 1, -1], [l + w, 1, 1], [l + w, 1, -1], [-l - w, 1, 1]]) / r
     for i, (vx, vy, om) in enumerate(twists):
         k = int(np.flatnonzero(np.isclose(tr["t"], i + 0.5))[0])
@@ -187,8 +183,7 @@ def test_halving_dt_leaves_constant_command_run_unchanged(command, robot_from_ya
     np.testing.assert_allclose(finals[2], finals[0], rtol=0, atol=1e-9)
 
 
-@pytest.mark.parametrize("engine", ENGINES)
-def test_rank_deficient_single_steered_drive(engine, robot_from_yaml, scenario_from_yaml, tmp_path):
+def test_rank_deficient_single_steered_drive(robot_from_yaml, scenario_from_yaml, tmp_path):
     # One driven steered wheel on ball units: rotation about the wheel's contact is undetermined.
     (tmp_path / "trolley.yaml").write_text("""
 wheels:
@@ -204,7 +199,7 @@ wheels:
           - {at: 0, wheels: {drive: {spin: 4.0, steer: 30 deg}}}
           - {at: 1.5, twist: {vx: 0.2, vy: 0.1, omega: 0.5}}
     """)
-    res = run_scenario(scen, keep=True, engine=engine)
+    res = run_scenario(scen, keep=True)
     tr = res.trace
     for col in ("x", "y", "theta", "vx", "vy", "omega", "slip", "b1.spin", "drive.spin"):
         assert np.all(np.isfinite(tr[col])), col
@@ -215,12 +210,11 @@ wheels:
     vc = np.array([tr["vx"][k], tr["vy"][k] + tr["omega"][k] * 0.3])
     np.testing.assert_allclose(vc, 0.4 * np.array([math.cos(math.pi / 6), math.sin(math.pi / 6)]), atol=1e-12)
     assert res.peak_slip < 1e-12
-    again = run_scenario(scen, keep=True, engine=engine).trace
+    again = run_scenario(scen, keep=True).trace
     assert all(np.array_equal(tr[c], again[c], equal_nan=True) for c in tr)
 
 
-@pytest.mark.parametrize("engine", ENGINES)
-def test_diff_drive_sideways_twist_projected(engine, robot_from_yaml, scenario_from_yaml, tmp_path):
+def test_diff_drive_sideways_twist_projected(robot_from_yaml, scenario_from_yaml, tmp_path):
     (tmp_path / "cart.yaml").write_text(DIFF.replace("\n    ", "\n"))
     scen = scenario_from_yaml(tmp_path, """
         robot: cart.yaml
@@ -229,7 +223,7 @@ def test_diff_drive_sideways_twist_projected(engine, robot_from_yaml, scenario_f
         script:
           - {at: 0, twist: {vx: 0.3, vy: 0.2, omega: 0.1}}
     """)
-    res = run_scenario(scen, keep=True, engine=engine)
+    res = run_scenario(scen, keep=True)
     tr = res.trace
     np.testing.assert_allclose(tr["vy"], 0.0, atol=1e-12)   # a diff drive cannot move sideways
     np.testing.assert_allclose(tr["vx"], 0.3, atol=1e-12)
@@ -318,9 +312,8 @@ def test_wait_drives_a_wheel_held_at_its_steer_limit(robot_from_yaml):
     assert row.slip < 1e-12
 
 
-@pytest.mark.parametrize("engine", ENGINES)
 @pytest.mark.parametrize("align", ["wait", "cosine"])
-def test_steer_limit_turn_in_a_run(align, engine, scenario_from_yaml, tmp_path):
+def test_steer_limit_turn_in_a_run(align, scenario_from_yaml, tmp_path):
     # The same as above through run_scenario (both engines), turning left then right.
     scen = scenario_from_yaml(tmp_path, f"""
         robot:
@@ -336,7 +329,7 @@ def test_steer_limit_turn_in_a_run(align, engine, scenario_from_yaml, tmp_path):
           - {{at: 0, twist: {{vx: 0.3, omega: 3.0}}}}
           - {{at: 1.5, twist: {{vx: 0.3, omega: -3.0}}}}
     """)
-    tr = run_scenario(scen, keep=True, engine=engine).trace
+    tr = run_scenario(scen, keep=True).trace
     R = 0.3 / math.tan(math.radians(30))      # tricycle geometry (common practice)
     for t, sign in ((1.4, 1.0), (2.9, -1.0)):
         k = int(np.argmin(np.abs(tr["t"] - t)))
@@ -385,7 +378,8 @@ def test_twist_commands_never_slip_on_any_layout(robot_from_yaml, wheels, twists
         driven = "false" if w["type"] == "ball" else str(w["driven"]).lower()
         lines.append(f"  - {{name: w{i}, type: {w['type']}, x: {w['x']}, y: {w['y']}, "
                      f"heading: {w['heading']} deg, radius: 0.05, driven: {driven}{extra}}}")
-    sim = Simulator(robot_from_yaml("\n".join(lines) + "\n"), 0.01, align=align)
+    # skid=False: a twist the wheels cannot follow is projected (skid steering would slip on purpose)
+    sim = Simulator(robot_from_yaml("\n".join(lines) + "\n"), 0.01, align=align, skid=False)
     for tw in twists:
         for _ in range(4):
             row = sim.step(twist=tw)

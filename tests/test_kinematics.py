@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from sim.theory.kinematics import choose_angle, forward, forward_matrix, inverse, inverse_matrix
+from sim.theory.kinematics import choose_angles, forward, forward_matrix, inverse, inverse_matrix
 
 MECANUM = """
     wheels:
@@ -142,18 +142,18 @@ def test_max_spin_scaling_keeps_curvature(robot_from_yaml):
 def test_choose_angle_nearer_of_angle_and_opposite():
     inf = math.inf
     # target 170 deg from 0 deg: -10 deg with the spin reversed is nearer
-    ang, sign = choose_angle(np.array([math.radians(170)]), 1.0, np.array([0.0]), -inf, inf)
+    ang, sign = choose_angles(np.array([math.radians(170)]), np.array([0.0]), -inf, inf)
     assert ang[0] == pytest.approx(math.radians(-10)) and sign[0] == -1
     # limits [-5, 5] deg... -10 is out, 170 is out: the candidate nearest the limits is chosen
-    ang, sign = choose_angle(np.array([math.radians(170)]), 1.0, np.array([0.0]),
-                             np.array([math.radians(-5)]), np.array([math.radians(5)]))
+    ang, sign = choose_angles(np.array([math.radians(170)]), np.array([0.0]),
+                              np.array([math.radians(-5)]), np.array([math.radians(5)]))
     assert ang[0] == pytest.approx(math.radians(-10)) and sign[0] == -1
     # limits [0, 200] deg: only 170 lies within
-    ang, sign = choose_angle(np.array([math.radians(170)]), 1.0, np.array([0.0]),
-                             np.array([0.0]), np.array([math.radians(200)]))
+    ang, sign = choose_angles(np.array([math.radians(170)]), np.array([0.0]),
+                              np.array([0.0]), np.array([math.radians(200)]))
     assert ang[0] == pytest.approx(math.radians(170)) and sign[0] == 1
     # continuity: from 350 deg a target of 10 deg is reached as 370 deg
-    ang, sign = choose_angle(np.array([math.radians(10)]), 1.0, np.array([math.radians(350)]), -inf, inf)
+    ang, sign = choose_angles(np.array([math.radians(10)]), np.array([math.radians(350)]), -inf, inf)
     assert ang[0] == pytest.approx(math.radians(370)) and sign[0] == 1
 
 

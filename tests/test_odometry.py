@@ -56,10 +56,9 @@ ARC_AND_TURNS = [{"at": 0, "twist": {"vx": 0.5, "omega": 0.3}},
                  {"at": 8, "stop": True}]
 
 
-@pytest.mark.parametrize("engine", ["reference", "chunked"])
-def test_perfect_encoders_reproduce_ground_truth_differential(engine):
+def test_perfect_encoders_reproduce_ground_truth_differential():
     scen = scenario(robot_data("ward-cart", FINE), ARC_AND_TURNS, 9, {"wheels": ["left", "right"]})
-    res = run_scenario(scen, keep=True, engine=engine)
+    res = run_scenario(scen, keep=True)
     assert res.peak_slip < 1e-9          # a consistent run
     truth, est = track(res)
     assert np.max(np.abs(est - truth)) < 1e-9
@@ -72,7 +71,7 @@ def test_perfect_encoders_reproduce_ground_truth_steered_modules():
               {"at": 3, "twist": {"vx": -0.1, "vy": 0.3}},
               {"at": 6, "stop": True}]
     scen = scenario(robot_data("quad-steer", FINE), script, 7, {})
-    res = run_scenario(scen, keep=True, engine="reference")
+    res = run_scenario(scen, keep=True)
     truth, est = track(res)
     assert res.distance > 1.0
     assert np.max(np.abs(est - truth)) < 1e-9

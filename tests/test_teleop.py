@@ -173,7 +173,7 @@ def test_keys_drive_the_recorded_trace(session_factory, tmp_path):
     assert tr["vx"][-1] == 0.0 and tr["omega"][-1] == 0.0
     # the replay scenario reproduces the recording byte for byte on the reference engine
     scen = load_scenario(tmp_path / "drive.scenario.yaml")
-    run_scenario(scen, csv=tmp_path / "replay.csv", engine="reference")
+    run_scenario(scen, csv=tmp_path / "replay.csv")
     assert (tmp_path / "replay.csv").read_bytes() == rec.read_bytes()
 
 
@@ -316,6 +316,6 @@ def test_run_window_matches_the_headless_picture(xvfb, tmp_path, cli):
     code, _, err = cli(["run", scen, "--png", tmp_path / "h.png"])
     assert code == 0, err
     assert (tmp_path / "w.png").read_bytes() == (tmp_path / "h.png").read_bytes()
-    ref = run_scenario(load_scenario(scen), csv=tmp_path / "ref.csv", engine="reference")
+    ref = run_scenario(load_scenario(scen), csv=tmp_path / "ref.csv")
     assert ref.rows == 601
     assert (tmp_path / "w.csv").read_bytes() == (tmp_path / "ref.csv").read_bytes()

@@ -10,9 +10,6 @@ def add_arguments(p):
     p.add_argument("scenario", help="scenario file (YAML)")
     p.add_argument("--csv", metavar="PATH", help="write the trace as CSV")
     p.add_argument("--every", type=int, default=1, metavar="N", help="keep every N-th row in the CSV")
-    p.add_argument("--engine", choices=("auto", "reference", "chunked"), default="auto",
-                   help="auto (default): the chunked engine where it applies; reference: the "
-                        "step-by-step definition (slower; for cross-checks)")
     p.add_argument("--baseline", metavar="PATH",
                    help="compare the trace with a recorded one (exit 1 when they diverge)")
     from sim.cli.options import add_tolerance_arguments
@@ -43,12 +40,7 @@ def run(args) -> int:
         res = view_run(scen, csv=args.csv, every=args.every, window=args.window, png=args.png,
                        frames=args.frames, fps=args.fps)
     else:
-        if args.engine == "chunked":
-            from sim.engine.chunked import supported
-            if not supported(scen.robot):
-                raise InputError("--engine", None, "the chunked engine does not handle driven castors; "
-                                 "use --engine auto or reference")
-        res = run_scenario(scen, csv=args.csv, every=args.every, engine=args.engine)
+        res = run_scenario(scen, csv=args.csv, every=args.every)
     print(summary_text(res))
     if args.png:
         print(f"picture   {args.png}")

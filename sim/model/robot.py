@@ -15,6 +15,14 @@ import numpy as np
 
 WHEEL_TYPES = ("fixed", "steered", "castor", "swedish", "ball")
 TYPE_CODE = {t: i for i, t in enumerate(WHEEL_TYPES)}
+FIXED, STEERED, CASTOR, SWEDISH, BALL = (TYPE_CODE[t] for t in WHEEL_TYPES)
+
+# Rows of Robot.packed, the wheels as one float array (NPARAM, n) for compiled code.
+PARAMS = ("code", "x", "y", "heading", "radius", "roller", "trail", "driven", "max_spin",
+          "max_spin_accel", "steer_lo", "steer_hi", "max_steer_rate", "rcos")
+(P_CODE, P_X, P_Y, P_HEADING, P_RADIUS, P_ROLLER, P_TRAIL, P_DRIVEN, P_MAX_SPIN, P_MAX_ACCEL,
+ P_STEER_LO, P_STEER_HI, P_STEER_RATE, P_RCOS) = range(len(PARAMS))
+NPARAM = len(PARAMS)
 
 
 
@@ -112,6 +120,19 @@ class Robot:
     @cached_property
     def arrays(self) -> "WheelArrays":
         return WheelArrays.of(self.wheels)
+
+    @cached_property
+    def packed(self) -> np.ndarray:
+        """The wheels as one read-only float array, shape (NPARAM, n): row ``P_X`` holds every
+        wheel's x, and so on (see :data:`PARAMS`; ``code`` as a float, ``driven`` 0 or 1,
+        ``rcos`` the rolling row's right-hand factor ``radius cos(roller)``)."""
+        a = self.arrays
+        p = np.ascontiguousarray(np.vstack([a.code.astype(float), a.x, a.y, a.heading, a.radius,
+                                            a.roller, a.trail, a.driven.astype(float), a.max_spin,
+                                            a.max_spin_accel, a.steer_lo, a.steer_hi, a.max_steer_rate,
+                                            a.radius * np.cos(a.roller)]))
+        p.flags.writeable = False
+        return p
 
     @cached_property
     def size(self) -> float:

@@ -364,7 +364,7 @@ def drive_square(true: Robot, belief: Robot, direction: int, side=DEFAULT_SIDE, 
         segments.append((np.array([side, 0.0, 0.0]), max(1, math.ceil(side / (speed * dt) - 1e-9))))
         segments.append((np.array([quarter * my, -quarter * mx, quarter]),
                          max(1, math.ceil(abs(quarter) / (turn_rate * dt) - 1e-9))))
-    sim = _engine(_unlimited(true), dt)
+    sim = Simulator(_unlimited(true), dt)
     odo = Odometer(spec, true, dt, rng=rng)
     for twist, n in segments:
         spins = (M @ twist) / (n * dt)
@@ -380,25 +380,11 @@ def drive_square(true: Robot, belief: Robot, direction: int, side=DEFAULT_SIDE, 
     return point(end) - point(odo.pose)
 
 
-def _engine(robot: Robot, dt: float):
-    """The chunked engine when it handles ``robot`` (it agrees with the reference to rounding), else the reference."""
-    try:
-        from sim.engine.chunked import ChunkedSimulator, supported
-    except ImportError:
-        return Simulator(robot, dt)
-    return ChunkedSimulator(robot, dt) if supported(robot) else Simulator(robot, dt)
-
-
 def _advance(sim, odo: Odometer, n: int) -> np.ndarray:
     """``n`` steps under the current commands, fed to the odometer; the true pose (3,) of the last row."""
-    if hasattr(sim, "advance"):
-        block = sim.advance(n)
-        odo.update_block(block)
-        return block.pose[-1]
-    for _ in range(n):
-        row = sim.step()
-        odo.update(row)
-    return row.pose
+    block = sim.advance(n)
+    odo.update_block(block)
+    return block.pose[-1]
 
 
 def square_test(true: Robot, belief: Robot, runs=5, side=DEFAULT_SIDE, speed=0.4, turn_rate=1.0, dt=0.05,

@@ -11,12 +11,16 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from sim.engine.chunked import CHUNK, Block, ChunkedSimulator, supported
+from sim.engine.notes import Decisions
+from sim.engine.record import columns
 from sim.engine.simulator import Simulator
-from sim.traces.floatfmt import fixed
 from sim.files.scenario import Scenario
-from sim.traces.writer import TraceWriter, columns
+from sim.theory.se2 import wrap
+from sim.traces.floatfmt import fixed
 from sim.traces.meta import write_meta
+from sim.traces.writer import TraceWriter
+
+CHUNK = 8192  # rows per block: the compiled stretch between two looks at Ctrl-C, the writer, the summary
 
 
 @dataclass
@@ -46,14 +50,12 @@ class RunResult:
     trace: dict | None = None
     interrupted: bool = False
     odometry: dict | None = None
+    decisions: dict = field(default_factory=dict)
+    notes: list = field(default_factory=list)
 
     @property
     def passed(self) -> bool:
         return all(c.passed for c in self.checks)
-
-
-def _wrap(a):
-    return (a + math.pi) % (2 * math.pi) - math.pi
 
 
 class _Checks:
@@ -89,7 +91,7 @@ class _Checks:
                          f"({fixed(want.get('x', row.pose[0]), 4)}, {fixed(want.get('y', row.pose[1]), 4)}): "
                          f"off {err:.3g} m, allowed {lim:g}")
         if "theta" in want:
-            err = abs(_wrap(row.pose[2] - want["theta"]))
+            err = abs(wrap(row.pose[2] - want["theta"]))
             lim = tol.get("heading", 0.0)
             ok &= err <= lim
             parts.append(f"heading {fixed(math.degrees(row.pose[2]))} deg vs {fixed(math.degrees(want['theta']))}: "
@@ -118,7 +120,7 @@ class _Checks:
         tol = p["tolerance"]
         ok, parts = True, []
         if "steer" in p:
-            err = abs(_wrap(row.steer[i] - p["steer"]))
+            err = abs(wrap(row.steer[i] - p["steer"]))
             lim = tol.get("steer", 0.0)
             ok &= err <= lim
             parts.append(f"steer {math.degrees(row.steer[i]):.3f} deg vs {math.degrees(p['steer']):.3f}: "
@@ -184,56 +186,27 @@ def _segments(scen: Scenario, chunk: int):
         k += m
 
 
-def _reference_blocks(scen, odo, on_row, block_rows=1024):
-    sim = Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
-    for k0, m, todo in _segments(scen, block_rows):
-        for c in todo:
-            apply_command(sim, c)
-        rows, extra = [], []
-        try:
-            for _ in range(m):
-                row = sim.step()
-                rows.append(row)
-                if odo:
-                    extra.append(odo.update(row))
-                if on_row is not None:
-                    on_row(row)
-        except KeyboardInterrupt:
-            rows = rows[:len(extra)] if odo else rows
-            if rows:  # an interrupted run keeps the rows made so far
-                yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
-            raise
-        yield Block.from_rows(k0, rows), (np.asarray(extra, float) if odo else None)
+def simulator_for(scen: Scenario) -> Simulator:
+    """A simulator at the scenario's start, with its step and policies."""
+    return Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance,
+                     skid=getattr(scen, "skid", True))
 
 
-def _chunked_blocks(scen, odo):
-    """Blocks of about CHUNK rows; short script segments are planned one by one
-    and moved together."""
-    sim = ChunkedSimulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
-    plans, rows = [], 0
+def _blocks(scen, odo, on_row):
+    """Blocks of at most CHUNK rows: each script segment runs as compiled stretches."""
+    sim = simulator_for(scen)
     for k0, m, todo in _segments(scen, CHUNK):
         for c in todo:
             apply_command(sim, c)
-        plans.append(sim.plan(m))
-        rows += m
-        if rows >= CHUNK or k0 + m >= scen.steps:
-            block = sim.move(plans)
-            plans, rows = [], 0
-            yield block, (odo.update_block(block) if odo else None)
-
-
-def use_chunked(scen: Scenario, on_row=None) -> bool:
-    """Whether :func:`run_scenario` takes the chunked engine (``engine='auto'``)."""
-    if on_row is not None or not supported(scen.robot):
-        return False
-    if scen.odometry is not None:
-        from sim.odometry.encoders import Odometer
-        return hasattr(Odometer, "update_block")
-    return True
+        block = sim.advance(m)
+        if on_row is not None:
+            for i in range(m):
+                on_row(block.row(i))
+        yield block, (odo.update_block(block) if odo else None)
 
 
 def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: bool = False,
-                 on_row=None, engine: str = "auto") -> RunResult:
+                 on_row=None) -> RunResult:
     """Run ``scen`` to the end.
 
     Parameters
@@ -247,23 +220,20 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         Also return the trace as arrays in ``RunResult.trace`` (memory grows
         with the run; use the CSV for long runs).
     on_row : callable(StepResult) or None
-        Called after every step (a renderer, a progress bar); implies the
-        reference engine.
-    engine : ``auto`` | ``reference`` | ``chunked``
-        ``auto`` takes the chunked engine whenever it applies.
+        Called with every row (a renderer, a progress bar), a block at a time.
     """
     odo = None
     if scen.odometry is not None:
         from sim.odometry.encoders import Odometer
         odo = Odometer(scen.odometry, scen.robot, scen.step, scen.start)
-    fast = use_chunked(scen, on_row) if engine == "auto" else engine == "chunked"
-    blocks = _chunked_blocks(scen, odo) if fast else _reference_blocks(scen, odo, on_row)
+    blocks = _blocks(scen, odo, on_row)
     extra_cols = tuple(odo.columns) if odo else ()
     header = columns(scen.robot, extra_cols)
     writer = TraceWriter(csv, header) if csv else None
     kept = [] if keep else None
     res = RunResult(scen)
     checks = _Checks(scen)
+    decisions = Decisions(scen.robot, scen.step)
     n = scen.steps
     last_pos = None
     try:
@@ -271,7 +241,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
             if writer or kept is not None:
                 k = block.k0 + np.arange(len(block))
                 sel = (k % every == 0) | (k == n - 1)
-                vals = block.values()
+                vals = block.values
                 if extra is not None:
                     vals = np.hstack([vals, extra])
                 vals = vals[sel]
@@ -280,6 +250,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
                 if kept is not None:
                     kept.append(vals)
             _account(res, checks, block, last_pos)  # after writing: the summary never claims unwritten rows
+            decisions.fold(block)
             last_pos = block.pose[-1, :2]
     except KeyboardInterrupt:
         res.interrupted = True
@@ -292,6 +263,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         write_meta(csv, scen, header, every, writer.rows, not res.interrupted)
     if odo:
         res.odometry = odo.summary()
+    res.decisions, res.notes = decisions.as_dict(), decisions.lines()
     res.checks = checks.evaluate(res, res.odometry)
     if kept is not None:
         arr = np.vstack(kept) if kept else np.zeros((0, len(header)))
@@ -338,10 +310,8 @@ def summary_text(res: RunResult) -> str:
              f"distance  {res.distance:.4f} m",
              f"final     x {fixed(x, 4)} m  y {fixed(y, 4)} m  theta {fixed(math.degrees(th))} deg",
              f"peak slip {res.peak_slip:.4g} m/s at t={res.peak_slip_t:g} s"]
-    if res.peak_shortfall > 1e-9:
-        vx, vy, w = res.peak_shortfall_twist
-        lines.append(f"twist     requests the base cannot follow: largest shortfall at t={res.peak_shortfall_t:g} s, "
-                     f"vx {vx:.4g} m/s, vy {vy:.4g} m/s, omega {w:.4g} rad/s (requested minus followed)")
+    for note in res.notes:
+        lines.append(f"engine    {note}")
     if res.underdetermined_t is not None:
         lines.append(f"note      from t={res.underdetermined_t:g} s the driven wheels left some motion undetermined; "
                      "the minimum-norm motion was used")

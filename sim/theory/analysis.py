@@ -193,10 +193,10 @@ def analyze(robot: Robot) -> Analysis:
                              "text": _twist_text(t)})
     sing = _singularities(robot, icr, dm)
     # report the generic steering as angles the wheels can take (h or h + pi, within limits)
-    from sim.theory.kinematics import choose_angle
+    from sim.theory.kinematics import choose_angles
     idx = np.flatnonzero(st)
-    shown, _ = choose_angle(h[idx], 1.0, np.clip(0.0, a.steer_lo[idx], a.steer_hi[idx]),
-                            a.steer_lo[idx], a.steer_hi[idx])
+    shown, _ = choose_angles(h[idx], np.clip(0.0, a.steer_lo[idx], a.steer_hi[idx]),
+                             a.steer_lo[idx], a.steer_hi[idx])
     return Analysis(robot.name, dm, ds, dM, dm == 3, kind, icr, driven, redundant, relations,
                     uncontrolled, sing, warnings,
                     {names[i]: float(v) for i, v in zip(idx, shown)})

@@ -11,32 +11,49 @@ whose flow is a linear fractional map; it is applied to the vector
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from sim.jit import physics
+from sim.theory.constraints import point_velocity
 
-def flow_coefficients(x, y, trail, twist, dt):
-    """The step map on ``(sin(s/2), cos(s/2))``, ``s = h - delta``: ``[[C, Sa], [Sb, C]]``.
 
-    Shapes broadcast: ``x, y, trail`` (..., c), ``twist`` (..., 3) or (..., 1, 3).
-    Returns ``(C, Sa, Sb, delta)``.
+@physics
+def swivel_one(h, x, y, trail, vx, vy, w, dt):
+    """Heading (rad) after ``dt`` s of body twist (vx, vy, w) of a castor with heading ``h``,
+    steering axis (x, y) m and trail > 0 m; continuous with ``h`` (no wrapping).
+
+    ``s = h - delta`` with ``n(h).v_axis = R cos(h - delta)``; ``u = tan(s/2)`` obeys
+    ``du/dt = (a - b u^2) / 2`` with ``a = c - w``, ``b = c + w``, ``c = R / trail``, whose flow
+    on ``(sin(s/2), cos(s/2))`` is the linear map ``[[C, Sa], [Sb, C]]`` (scaled by
+    ``1/cosh`` when hyperbolic, so long steps cannot overflow).
     """
-    t = np.asarray(twist, dtype=float)
-    vx, vy, w = t[..., 0], t[..., 1], t[..., 2]
-    ax = vx - w * y
-    ay = vy + w * x
-    # n(h).v = -sin h ax + cos h ay = R cos(h - delta), delta = atan2(-ax, ay)
-    delta = np.arctan2(-ax, ay)
-    c = np.hypot(ax, ay) / trail
-    # u = tan(s/2): du/dt = (a - b u^2)/2, a = c - w, b = c + w; flow of [p, q]' = [[0, a/2], [b/2, 0]] [p, q]
+    ax, ay = point_velocity(x, y, vx, vy, w)
+    delta = math.atan2(-ax, ay)
+    c = math.hypot(ax, ay) / trail
     a, b = c - w, c + w
     mu = a * b / 4.0
-    root = np.sqrt(np.abs(mu))
+    root = math.sqrt(abs(mu))
     tau = root * dt
-    pos, neg = mu > 1e-300, mu < -1e-300
-    safe = np.where(root > 0, root, 1.0)
-    C = np.where(pos, np.cosh(tau), np.where(neg, np.cos(tau), 1.0))
-    Sf = np.where(pos, np.sinh(tau) / safe, np.where(neg, np.sin(tau) / safe, dt))
-    return C, Sf * (a / 2.0), Sf * (b / 2.0), delta
+    if mu > 1e-300:
+        C, Sf = 1.0, math.tanh(tau) / root
+    elif mu < -1e-300:
+        C, Sf = math.cos(tau), math.sin(tau) / root
+    else:
+        C, Sf = 1.0, dt
+    Sa, Sb = Sf * (a / 2.0), Sf * (b / 2.0)
+    s = h - delta
+    p, q = math.sin(s / 2.0), math.cos(s / 2.0)
+    s2 = 2.0 * math.atan2(C * p + Sa * q, C * q + Sb * p)
+    return h + ((s2 - s + math.pi) % (2.0 * math.pi) - math.pi)
+
+
+@physics
+def swivel_into(heading, x, y, trail, twist, dt, out):
+    """:func:`swivel_one` for castors (k,) under twists (k, 3), into ``out`` (k,)."""
+    for i in range(heading.shape[0]):
+        out[i] = swivel_one(heading[i], x[i], y[i], trail[i], twist[i, 0], twist[i, 1], twist[i, 2], dt)
 
 
 def swivel(heading, x, y, trail, twist, dt):
@@ -53,9 +70,9 @@ def swivel(heading, x, y, trail, twist, dt):
     -------
     ndarray, shape (m,), rad; continuous with ``heading`` (no wrapping).
     """
-    C, Sa, Sb, delta = flow_coefficients(x, y, trail, twist, dt)
-    s = heading - delta
-    p, q = np.sin(s / 2.0), np.cos(s / 2.0)
-    s2 = 2.0 * np.arctan2(C * p + Sa * q, C * q + Sb * p)
-    d = np.mod(s2 - s + np.pi, 2.0 * np.pi) - np.pi
-    return heading + d
+    h = np.asarray(heading, dtype=float)
+    tw = np.ascontiguousarray(np.broadcast_to(np.asarray(twist, dtype=float), h.shape + (3,)))
+    out = np.empty(h.shape)
+    f = lambda a: np.ascontiguousarray(np.broadcast_to(np.asarray(a, dtype=float), h.shape))
+    swivel_into(f(h), f(x), f(y), f(trail), tw, float(dt), out)
+    return out

@@ -21,29 +21,81 @@ row (their rollers, or the sphere, absorb it); ball wheels give no row at all.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from sim.model.robot import Robot
+from sim.jit import physics
+from sim.model.robot import FIXED, P_CODE, P_DRIVEN, P_ROLLER, P_X, P_Y, STEERED, Robot
+
+
+@physics
+def rolling_row(x, y, h, g):
+    """Rolling row of a wheel at (x, y) m, heading ``h``, roller angle ``g`` (rad): 3 floats."""
+    c, s = math.cos(h + g), math.sin(h + g)
+    return c, s, x * s - y * c
+
+
+@physics
+def sliding_row(x, y, h, trail):
+    """No-sliding row of a wheel at (x, y) m, heading ``h`` rad; ``trail`` > 0 m for castors: 3 floats."""
+    c, s = math.cos(h), math.sin(h)
+    return -s, c, x * c + y * s - trail
+
+
+@physics
+def point_velocity(x, y, vx, vy, w):
+    """Rigid-body velocity (m/s, body frame) of body point (x, y) m under twist (vx, vy, w)."""
+    return vx - w * y, vy + w * x
+
+
+@physics
+def rows_into(sliding, x, y, h, g, out):
+    """Rolling (``sliding`` False; ``g`` roller angles) or no-sliding (``g`` trails) rows of
+    wheels given as flat arrays (k,), into ``out`` (k, 3)."""
+    for i in range(x.shape[0]):
+        if sliding:
+            out[i, 0], out[i, 1], out[i, 2] = sliding_row(x[i], y[i], h[i], g[i])
+        else:
+            out[i, 0], out[i, 1], out[i, 2] = rolling_row(x[i], y[i], h[i], g[i])
+
+
+@physics
+def velocities_into(x, y, xi, out):
+    """Velocities (k, 2) of body points (k,) under twists ``xi`` (k, 3), into ``out``."""
+    for i in range(x.shape[0]):
+        out[i, 0], out[i, 1] = point_velocity(x[i], y[i], xi[i, 0], xi[i, 1], xi[i, 2])
+
+
+def _flat(*arrays):
+    b = np.broadcast_arrays(*[np.asarray(a, dtype=float) for a in arrays])
+    return b[0].shape, [np.array(a.reshape(-1)) for a in b]
 
 
 def rolling_rows(x, y, heading, roller):
     """Rolling rows, shape (..., 3), for arrays of shape (...) (m, rad)."""
-    c, s = np.cos(heading + roller), np.sin(heading + roller)
-    return np.stack([c, s, x * s - y * c], axis=-1)
+    shape, (x, y, h, g) = _flat(x, y, heading, roller)
+    out = np.empty((x.size, 3))
+    rows_into(False, x, y, h, g, out)
+    return out.reshape(shape + (3,))
 
 
 def sliding_rows(x, y, heading, trail=0.0):
     """No-sliding rows, shape (..., 3); ``trail`` > 0 for castors (m)."""
-    c, s = np.cos(heading), np.sin(heading)
-    return np.stack([-s, c, x * c + y * s - trail], axis=-1)
+    shape, (x, y, h, d) = _flat(x, y, heading, trail)
+    out = np.empty((x.size, 3))
+    rows_into(True, x, y, h, d, out)
+    return out.reshape(shape + (3,))
 
 
 def contact_velocity(x, y, xi):
     """Rigid-body velocity, shape (..., 2) m/s, of body points (x, y) for twist ``xi`` (..., 3)."""
     xi = np.asarray(xi, dtype=float)
-    return np.stack([xi[..., 0] - xi[..., 2] * y, xi[..., 1] + xi[..., 2] * x], axis=-1)
+    shape, (x, y, vx, vy, w) = _flat(x, y, xi[..., 0], xi[..., 1], xi[..., 2])
+    out = np.empty((x.size, 2))
+    velocities_into(x, y, np.ascontiguousarray(np.stack([vx, vy, w], axis=1)), out)
+    return out.reshape(shape + (2,))
 
 
 def castor_contact(x, y, heading, trail):
@@ -123,6 +175,30 @@ def stack(robot: Robot, heading=None) -> Stack:
     return Stack(J1f, J1s, C1f, C1s, C1c, a.trail[a.is_("castor")], J2, nf, ns, cf, cs, cc)
 
 
+@physics
+def motion_rows_into(P, heading, A, wheel, rolling):
+    """Rows of the body-motion solve at wheel ``heading`` (n,) rad, for wheels ``P`` (NPARAM, n).
+
+    Rolling rows of driven wheels, then no-sliding rows of fixed and steered wheels,
+    each block in file order, into ``A`` (>= 2n, 3); ``wheel`` (int) and ``rolling``
+    (bool) say whose row each is.  Returns the number of rows m.
+    """
+    n = P.shape[1]
+    m = 0
+    for i in range(n):
+        if P[P_DRIVEN, i] != 0.0:
+            A[m, 0], A[m, 1], A[m, 2] = rolling_row(P[P_X, i], P[P_Y, i], heading[i], P[P_ROLLER, i])
+            wheel[m], rolling[m] = i, True
+            m += 1
+    for i in range(n):
+        c = P[P_CODE, i]
+        if c == FIXED or c == STEERED:
+            A[m, 0], A[m, 1], A[m, 2] = sliding_row(P[P_X, i], P[P_Y, i], heading[i], 0.0)
+            wheel[m], rolling[m] = i, False
+            m += 1
+    return m
+
+
 def motion_rows(robot: Robot, heading) -> tuple:
     """Rows the engine solves: (A, kind, wheel) for one configuration.
 
@@ -137,12 +213,9 @@ def motion_rows(robot: Robot, heading) -> tuple:
         True for rolling rows (right-hand side ``r cos(g) phidot``), False for
         no-sliding rows (right-hand side 0).
     """
-    a = robot.arrays
-    h = np.asarray(heading, dtype=float)
-    idx_r = np.flatnonzero(a.driven)
-    idx_s = np.flatnonzero(a.is_("fixed", "steered"))
-    A = np.vstack([rolling_rows(a.x[idx_r], a.y[idx_r], h[idx_r], a.roller[idx_r]).reshape(-1, 3),
-                   sliding_rows(a.x[idx_s], a.y[idx_s], h[idx_s]).reshape(-1, 3)])
-    wheel = np.concatenate([idx_r, idx_s])
-    rolling = np.concatenate([np.ones(len(idx_r), bool), np.zeros(len(idx_s), bool)])
-    return A, wheel, rolling
+    n = len(robot.wheels)
+    A = np.empty((2 * n, 3))
+    wheel = np.empty(2 * n, np.int64)
+    rolling = np.empty(2 * n, np.bool_)
+    m = motion_rows_into(robot.packed, np.ascontiguousarray(heading, dtype=float), A, wheel, rolling)
+    return A[:m].copy(), wheel[:m].copy(), rolling[:m].copy()

@@ -1,55 +1,82 @@
-"""Planar rigid motions: the exact SE(2) exponential of a body twist.
+"""Planar rigid motions: the exact SE(2) exponential of a body twist, pose composition, angle wrapping.
 
 Poses are ``(x, y, theta)`` in the world frame (m, m, rad); twists are
-``(vx, vy, omega)`` in the body frame (m/s, m/s, rad/s).
+``(vx, vy, omega)`` in the body frame (m/s, m/s, rad/s).  The scalar functions
+are the one definition (:func:`sim.jit.physics`: the engine compiles them);
+the array functions loop over them.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from sim.jit import physics
 
-def _sinc_cosc(phi):
-    """sin(phi)/phi and (1 - cos(phi))/phi, exact to rounding near 0 (arrays)."""
-    phi = np.asarray(phi, dtype=float)
-    small = np.abs(phi) < 1e-4
-    safe = np.where(small, 1.0, phi)
-    p2 = phi * phi
-    sinc = np.where(small, 1.0 - p2 / 6.0 + p2 * p2 / 120.0, np.sin(safe) / safe)
-    cosc = np.where(small, phi / 2.0 - phi * p2 / 24.0 + phi * p2 * p2 / 720.0,
-                    2.0 * np.sin(safe / 2.0) ** 2 / safe)
-    return sinc, cosc
+
+def wrap(a):
+    """Angle(s) ``a`` (rad, scalar or array) wrapped to [-pi, pi)."""
+    return (a + math.pi) % (2.0 * math.pi) - math.pi
+
+
+@physics
+def exp_increment(vx, vy, w, dt):
+    """Displacement ``(dx, dy, dtheta)`` (m, m, rad), in the starting body frame, after
+    holding body twist (vx, vy, w) for ``dt`` s: the exact exponential (constant twists
+    trace exact arcs); series below |w dt| = 1e-4, exact to rounding."""
+    ax, ay, phi = vx * dt, vy * dt, w * dt
+    if abs(phi) < 1e-4:
+        p2 = phi * phi
+        sinc = 1.0 - p2 / 6.0 + p2 * p2 / 120.0
+        cosc = phi / 2.0 - phi * p2 / 24.0 + phi * p2 * p2 / 720.0
+    else:
+        sinc = math.sin(phi) / phi
+        h = math.sin(phi / 2.0)
+        cosc = 2.0 * h * h / phi
+    return ax * sinc - ay * cosc, ax * cosc + ay * sinc, phi
+
+
+@physics
+def compose(x, y, th, dx, dy, dth):
+    """World pose after body-frame increment (dx, dy, dth) from pose (x, y, th)."""
+    c, s = math.cos(th), math.sin(th)
+    return x + c * dx - s * dy, y + s * dx + c * dy, th + dth
+
+
+@physics
+def increments_into(twists, dt, out):
+    """Exact increments of twists (m, 3) held ``dt`` s each, written to ``out`` (m, 3)."""
+    for i in range(twists.shape[0]):
+        out[i, 0], out[i, 1], out[i, 2] = exp_increment(twists[i, 0], twists[i, 1], twists[i, 2], dt)
+
+
+@physics
+def integrate_into(pose0, inc, out):
+    """Poses after each of the body increments ``inc`` (m, 3) from ``pose0`` (3,), into ``out`` (m, 3)."""
+    x, y, th = pose0[0], pose0[1], pose0[2]
+    for i in range(inc.shape[0]):
+        x, y, th = compose(x, y, th, inc[i, 0], inc[i, 1], inc[i, 2])
+        out[i, 0], out[i, 1], out[i, 2] = x, y, th
 
 
 def body_increment(twist, dt):
-    """Displacement over ``dt`` s of constant body twist(s), in the starting body frame.
-
-    Parameters
-    ----------
-    twist : array_like, shape (..., 3)
-    dt : float or array_like, shape (...)
-
-    Returns
-    -------
-    ndarray, shape (..., 3)
-        ``(dx, dy, dtheta)`` (m, m, rad): the exact exponential, so constant
-        twists trace exact arcs.
-    """
+    """Displacement over ``dt`` s of constant body twist(s), shape (..., 3) -> (..., 3)."""
     t = np.asarray(twist, dtype=float)
-    vx, vy, w = t[..., 0] * dt, t[..., 1] * dt, t[..., 2] * dt
-    sinc, cosc = _sinc_cosc(w)
-    return np.stack([vx * sinc - vy * cosc, vx * cosc + vy * sinc, w], axis=-1)
-
-
-def compose(pose, inc):
-    """World pose after a body-frame increment: ``pose (+) inc``, shapes (..., 3)."""
-    pose = np.asarray(pose, dtype=float)
-    inc = np.asarray(inc, dtype=float)
-    c, s = np.cos(pose[..., 2]), np.sin(pose[..., 2])
-    return np.stack([pose[..., 0] + c * inc[..., 0] - s * inc[..., 1],
-                     pose[..., 1] + s * inc[..., 0] + c * inc[..., 1],
-                     pose[..., 2] + inc[..., 2]], axis=-1)
+    flat = np.ascontiguousarray(t.reshape(-1, 3))
+    out = np.empty_like(flat)
+    increments_into(flat, float(dt), out)
+    return out.reshape(t.shape)
 
 
 def step_pose(pose, twist, dt):
-    """Pose after holding body ``twist`` for ``dt`` s (exact), shape (3,)."""
-    return compose(pose, body_increment(twist, dt))
+    """Pose (3,) after holding body ``twist`` (3,) for ``dt`` s (exact)."""
+    dx, dy, dth = exp_increment(float(twist[0]), float(twist[1]), float(twist[2]), float(dt))
+    return np.array(compose(float(pose[0]), float(pose[1]), float(pose[2]), dx, dy, dth))
+
+
+def integrate(pose0, inc) -> np.ndarray:
+    """Poses, shape (m, 3), after each body increment of ``inc`` (m, 3) from ``pose0`` (3,)."""
+    inc = np.ascontiguousarray(inc, dtype=float).reshape(-1, 3)
+    out = np.empty_like(inc)
+    integrate_into(np.asarray(pose0, dtype=float), inc, out)
+    return out

@@ -1,12 +1,10 @@
-"""CSV traces: the column layout, and a streaming writer.
+"""CSV traces: a streaming writer.
 
-One row per step from t = 0 to the end inclusive (``every`` decimates):
-``t,x,y,theta,vx,vy,omega,icr_x,icr_y,slip,cmd_vx,cmd_vy,cmd_omega`` then per
-wheel in file order ``NAME.spin_cmd,NAME.spin,NAME.steer_cmd,NAME.steer,
-NAME.slip_long,NAME.slip_lat``.  Floats are written with round-trip precision
-(Python ``repr``); a blank cell means "not defined" (no ICR, no twist
-command, no such row for that wheel).  Extra column groups (odometry) are
-appended by whoever adds them.
+One row per step from t = 0 to the end inclusive (``every`` decimates), in the
+columns of the step record (:mod:`sim.engine.record`: ``columns``).  Floats are
+written with round-trip precision (Python ``repr``); a blank cell means "not
+defined" (no ICR, no twist command, no such row for that wheel).  Extra column
+groups (odometry) are appended by whoever adds them.
 """
 from __future__ import annotations
 
@@ -14,27 +12,12 @@ import os
 
 import numpy as np
 
+from sim.engine.record import columns  # noqa: F401  (the header, re-exported for writers)
 from sim.traces.floatfmt import format_block
 
-BASE_COLUMNS = ("t", "x", "y", "theta", "vx", "vy", "omega", "icr_x", "icr_y", "slip",
-                "cmd_vx", "cmd_vy", "cmd_omega")
-WHEEL_FIELDS = ("spin_cmd", "spin", "steer_cmd", "steer", "slip_long", "slip_lat")
-
-
-def columns(robot, extra=()) -> list:
-    """Header of a trace of ``robot``."""
-    cols = list(BASE_COLUMNS)
-    for w in robot.wheels:
-        cols += [f"{w.name}.{f}" for f in WHEEL_FIELDS]
-    return cols + list(extra)
-
-
 def row_values(r, extra=()) -> np.ndarray:
-    """Flat float row (nan = blank) for a :class:`~sim.engine.StepResult`."""
-    cmd = r.cmd_twist if r.cmd_twist is not None else (np.nan, np.nan, np.nan)
-    head = [r.t, *r.pose, *r.twist, *r.icr, r.slip, *cmd]
-    wheels = np.stack([r.spin_cmd, r.spin, r.steer_cmd, r.steer, r.slip_long, r.slip_lat], axis=1)
-    return np.concatenate([np.asarray(head, float), wheels.reshape(-1), np.asarray(extra, float)])
+    """Flat float row (nan = blank) of a :class:`~sim.engine.record.StepResult`, plus ``extra``."""
+    return np.concatenate([r.values, np.asarray(extra, float)])
 
 
 def format_rows(block: np.ndarray) -> str:

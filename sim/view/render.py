@@ -193,32 +193,12 @@ class View:
 
 
 def command_notes(robot, row, align="wait", align_tolerance=None) -> list:
-    """Why the base is not doing what it was asked, as short sentences (may be empty).
+    """Why the base is not doing what it was asked, as short sentences (may be empty): what
+    the engine recorded in the row (:func:`sim.engine.notes.row_notes`), plus an
+    under-determined motion (rank < 3).  ``align_tolerance`` is unused (the engine decided)."""
+    from sim.engine.notes import row_notes
 
-    row : :class:`~sim.engine.StepResult`.  Looks at the shortfall (a twist the
-    fixed wheels forbid), the ``max_spin`` speed cap (via the inverse
-    kinematics), a ``wait`` policy holding the drive while modules turn, and
-    an under-determined motion (rank < 3).
-    """
-    from sim.engine.simulator import DEFAULT_ALIGN_TOLERANCE
-    from sim.theory.kinematics import inverse
-
-    tol = DEFAULT_ALIGN_TOLERANCE if align_tolerance is None else align_tolerance
-    out = []
-    if row.cmd_twist is not None:
-        sf = np.asarray(row.shortfall, dtype=float)
-        if np.linalg.norm(sf) > 1e-9:
-            parts = [f"{n} {fixed(v, 3)}{u}" for n, v, u in
-                     zip(("vx", "vy", "omega"), sf, (" m/s", " m/s", " rad/s")) if abs(v) > 1e-9]
-            out.append("cannot follow " + ", ".join(parts) + ": the fixed wheels forbid it")
-        ik = inverse(robot, row.cmd_twist, row.steer)
-        if ik.scale < 1.0 - 1e-9:
-            out.append(f"max_spin caps the speed at {100 * ik.scale:.0f} % of the request")
-        st = robot.arrays.is_("steered")
-        if align == "wait" and np.any(st) and np.linalg.norm(row.cmd_twist) > 0:
-            err = np.abs(row.steer_cmd[st] - row.steer[st])
-            if np.any(err > tol):
-                out.append(f"waiting for steering (align wait): {np.degrees(err.max()):.1f} deg to go")
+    out = row_notes(robot, row, align)
     if row.rank < 3:
         out.append(f"motion partly undetermined by the driven wheels (rank {row.rank})")
     return out
