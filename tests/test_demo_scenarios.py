@@ -73,11 +73,14 @@ def test_steered_base_arrives_later_by_the_resteer_time():
         t_tote = 2 + Tb + (y0 - v * Tb / 2) / v
         t_quad = 2 + ts + Tu + (y0 - y_dec - v * Tu / 2) / v
         got_tote, got_quad = _arrival(tote, y0), _arrival(quadr, y0)
-        # the engine's actuators reach each step's value at its start: within one step
+        # a row holds the actuators at its start and they move over the step (README "Trace
+        # columns"): the ramps lag the continuous ones by half a step, and the drive starts
+        # in the step after the one whose start finds the modules within tolerance: within
+        # one step for the tote, two for the steered base
         assert abs(got_tote - t_tote) < 0.01
-        assert abs(got_quad - t_quad) < 0.01
+        assert abs(got_quad - t_quad) < 0.02
         lag = got_quad - got_tote
-        assert abs(lag - (ts + Tu / 2 - Tb / 2 - y_dec / v)) < 0.01
+        assert abs(lag - (ts + Tu / 2 - Tb / 2 - y_dec / v)) < 0.02
         assert lag > 0.4
     # neither base slips: the comparison is about time, not about skidding
     assert np.max(tote["slip"]) < 1e-9 and np.max(quadr["slip"]) < 1e-9

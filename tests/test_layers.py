@@ -119,6 +119,15 @@ def test_no_private_names_across_modules():
     assert not bad, "\n".join(bad)
 
 
+def test_numba_only_through_the_one_place_of_compile_options():
+    # every kernel shares sim/jit.py's OPTIONS (cache, no fast-math): nobody else imports numba
+    mods, _ = _graph()
+    bad = [f"{path.relative_to(SIM.parent)}:{line}: imports {target}"
+           for name, path in mods.items() if name != "sim.jit"
+           for target, _, line in _imports(name, path) if target.split(".")[0] == "numba"]
+    assert not bad, "\n".join(bad)
+
+
 def test_the_checker_sees_a_violation(tmp_path):
     # the rules above must be able to fail: an engine module importing the view is caught
     assert _layer("sim.view.render") == "view"

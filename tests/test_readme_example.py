@@ -32,11 +32,12 @@ def test_readme_python_example_runs():
     # wheels ramping together, the change between a straight leg (v / r = 6.25 rad/s per
     # wheel) and a turn (+-b omega / (2 r) = 4.32 rad/s) takes T = 10.57 / 60 = 0.176 s, a
     # linear blend, so each turn's ramp-in loses (pi/2) T / 2 and the next leg's ramp-out
-    # gives it back; only the last turn keeps its loss.  The engine's actuators reach each
-    # step's speed at its start, so its ramp leads the continuous one by about half a step.
+    # gives it back; only the last turn keeps its loss.  A row holds the speeds at its start
+    # and the drives ramp over the step, so the engine's ramp lags the continuous one by
+    # about half a step.
     r, b, dt = 0.08, 0.44, 0.01
     T = (0.5 / r + b / 2 * math.pi / 2 / r) / 60.0
-    want = 2 * math.pi - math.pi / 2 * (T / 2) + math.pi / 2 * dt / 2
+    want = 2 * math.pi - math.pi / 2 * (T / 2) - math.pi / 2 * dt / 2
     assert abs(theta - want) < 2e-3
     # open loop, the square nearly closes: the blended corners leave it a few cm off
     assert math.hypot(x, y) < 0.05

@@ -15,7 +15,13 @@ times; the table shows the median.  Cases:
 4. ``trundle batch`` over 200 generated 10 s scenarios, ``--jobs 1`` and all cores, run
    alternately (the ratio is the median of the pairs' ratios);
 5. start-up: ``trundle analyze`` on a small base, whole process;
-6. peak memory of a one-hour run at 1 kHz streaming CSV.
+6. peak memory of a one-hour run at 1 kHz streaming CSV;
+7. the per-step API: ``Simulator.step(twist=...)`` in a Python loop on the
+   four-module steered base (the path of a user's own controller), beside the
+   naive loop;
+8. the first call in a fresh process: import, load the base, one stretch, with
+   numba's on-disk cache warm and cold (an empty cache folder), against the
+   same work once everything is loaded.
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.
@@ -152,6 +158,36 @@ def _one(case: str, folder: str) -> dict:
         t = time.perf_counter()
         res = run_scenario(scen)
         return {"steps": res.rows, "wall": time.perf_counter() - t, "peak_mb": _peak_mb()}
+    if case == "7":
+        from sim import Simulator, load_robot
+        robot = load_robot(os.path.join(ROBOTS, "quad-steer.yaml"))
+        sim = Simulator(robot, 0.001)
+        twists = [(0.5, 0.2, 0.3), (0.4, -0.1, -0.2)]
+        for _ in range(1000):
+            sim.step(twist=twists[0])
+        n = 200_000
+        t = time.perf_counter()
+        for i in range(n):
+            sim.step(twist=twists[(i // 2000) % 2])
+        wall = time.perf_counter() - t
+        sys.path.insert(0, os.path.join(ROOT, "tools"))
+        import naive_loop
+        t = time.perf_counter()
+        naive_loop.run(robot, 0.001, [(0, twists[0])], NAIVE_STEPS)
+        return {"steps": n, "wall": wall, "peak_mb": _peak_mb(),
+                "naive_steps_per_s": NAIVE_STEPS / (time.perf_counter() - t)}
+    if case == "8":
+        t0 = time.perf_counter()
+        from sim import Simulator, load_robot
+        sim = Simulator(load_robot(os.path.join(ROBOTS, "quad-steer.yaml")), 0.001)
+        sim.command_twist((0.5, 0.2, 0.3))
+        sim.advance(1000)
+        first = time.perf_counter() - t0
+        t = time.perf_counter()
+        sim = Simulator(load_robot(os.path.join(ROBOTS, "quad-steer.yaml")), 0.001)
+        sim.command_twist((0.5, 0.2, 0.3))
+        sim.advance(1000)
+        return {"steps": 1000, "wall": first, "steady": time.perf_counter() - t, "peak_mb": _peak_mb()}
     if case == "6":
         scen = load_scenario(os.path.join(folder, "hour.yaml"))
         csv = os.path.join(folder, "hour.csv")
@@ -165,9 +201,9 @@ def _one(case: str, folder: str) -> dict:
     raise SystemExit(f"unknown case {case}")
 
 
-def _sub(case, folder) -> dict:
+def _sub(case, folder, env=None) -> dict:
     r = subprocess.run([sys.executable, __file__, "--one", case, "--folder", folder],
-                       capture_output=True, text=True, check=True)
+                       capture_output=True, text=True, check=True, env=env)
     return json.loads(r.stdout.strip().splitlines()[-1])
 
 
@@ -222,6 +258,23 @@ def main(argv=None) -> int:
             wall = med([_timed(cmd) for _ in range(max(5, args.repeat))])
             rows.append({"case": "5", "label": "start-up: trundle analyze (whole process)",
                          "steps": 0, "wall_s": wall, "steps_per_s": float("nan"), "peak_mb": float("nan")})
+        if "7" not in skip:
+            runs = [_sub("7", folder) for _ in range(args.repeat)]
+            wall = med([r["wall"] for r in runs])
+            naive = med([r["naive_steps_per_s"] for r in runs])
+            rows.append({"case": "7", "label": "per-step API, sim.step(twist) loop", "steps": runs[0]["steps"],
+                         "wall_s": wall, "steps_per_s": runs[0]["steps"] / wall,
+                         "ratio": runs[0]["steps"] / wall / naive, "naive_steps_per_s": naive,
+                         "peak_mb": max(r["peak_mb"] for r in runs)})
+        if "8" not in skip:
+            _sub("8", folder)  # make sure the cache is warm
+            warm = [_sub("8", folder) for _ in range(args.repeat)]
+            with tempfile.TemporaryDirectory(prefix="trundle-numba-") as cache:
+                cold = _sub("8", folder, env=dict(os.environ, NUMBA_CACHE_DIR=cache))
+            w, st = med([r["wall"] for r in warm]), med([r["steady"] for r in warm])
+            rows.append({"case": "8", "label": "first stretch, fresh process, cache warm", "steps": 1000,
+                         "wall_s": w, "steps_per_s": float("nan"), "peak_mb": float("nan"), "steady": st,
+                         "cold": cold["wall"]})
         if "6" not in skip:
             r = _sub("6", folder)
             rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],
@@ -244,6 +297,11 @@ def main(argv=None) -> int:
                   f"over its first {NAIVE_STEPS} steps")
         if r["case"] == "4":
             print(f"case 4 --jobs 1: {r['jobs1_s']:.2f} s; all cores: {r['wall_s']:.2f} s")
+        if r["case"] == "7":
+            print(f"case 7 naive loop beside it: {r['naive_steps_per_s']:,.0f} steps/s")
+        if r["case"] == "8":
+            print(f"case 8 first stretch {r['wall_s']:.3f} s with the cache warm ({r['wall_s'] - r['steady']:.3f} s "
+                  f"above the same work in a warm process, {r['steady']:.4f} s); cold cache: {r['cold']:.1f} s")
     return 0
 
 

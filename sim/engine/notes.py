@@ -26,9 +26,9 @@ def row_notes(robot, row, align: str = "wait") -> list:
         out.append(f"at a steering limit: {', '.join(lim)} (the goal lies beyond it; the wheel slips)")
     if row.cmd_twist is not None:
         if row.fit == 1:
-            sv = row.shortfall
-            out.append(f"cannot follow: vx {sv[0]:.3g} m/s, vy {sv[1]:.3g} m/s, omega {sv[2]:.3g} rad/s "
-                       "dropped (the fixed wheels forbid it)")
+            parts = [f"{name} {v:.3f}{unit}" for name, v, unit in
+                     zip(("vx", "vy", "omega"), row.shortfall, (" m/s", " m/s", " rad/s")) if abs(v) > 1e-9]
+            out.append("cannot follow " + ", ".join(parts) + ": the fixed wheels forbid it")
         elif row.fit == 2:
             out.append(f"skid steering: wheel speeds whose least-squares motion is the request; slip {row.slip:.3g} m/s")
         if row.scale < 1.0:

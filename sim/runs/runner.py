@@ -195,10 +195,11 @@ def simulator_for(scen: Scenario) -> Simulator:
 def _blocks(scen, odo, on_row):
     """Blocks of at most CHUNK rows: each script segment runs as compiled stretches."""
     sim = simulator_for(scen)
+    buf = np.empty((min(CHUNK, max(scen.steps, 1)), sim.width))  # reused: each block is consumed before the next
     for k0, m, todo in _segments(scen, CHUNK):
         for c in todo:
             apply_command(sim, c)
-        block = sim.advance(m)
+        block = sim.advance(m, out=buf[:m])
         if on_row is not None:
             for i in range(m):
                 on_row(block.row(i))
