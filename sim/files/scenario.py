@@ -20,7 +20,7 @@ from sim.model.robot import Robot
 from sim.files.yamlread import load_file
 
 MAX_STEPS = 10 ** 9
-_KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "script",
+_KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "skid", "script",
          "commands", "checks", "odometry", "description")
 
 
@@ -71,6 +71,7 @@ class Scenario:
     scenario_hash: str
     odometry: object = None
     description: str = ""
+    skid: bool = True
 
     @property
     def steps(self) -> int:
@@ -123,6 +124,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         tol = F.angle(data["align_tolerance"], at("align_tolerance"))
         if tol <= 0:
             raise at("align_tolerance").error("must be > 0")
+    skid = F.boolean(data["skid"], at("skid")) if "skid" in data else True
     if "script" in data and "commands" in data:
         raise where.error("give either 'script' or 'commands' (a CSV command log), not both")
     if "commands" in data:
@@ -144,7 +146,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     if not isinstance(desc, str):
         raise at("description").error("expected text")
     return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
-                    source, robot_hash, scen_hash, odometry, desc)
+                    source, robot_hash, scen_hash, odometry, desc, skid)
 
 
 def _start_steer(robot, value, where):

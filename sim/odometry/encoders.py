@@ -41,10 +41,14 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from sim.jit import compile_all
 from sim.theory.constraints import rolling_rows, sliding_rows
-from sim.theory.kinematics import RANK_TOL, twist_scale
+from sim.theory.kinematics import twist_scale
+from sim.theory.linalg import lstsq_many_into, pinv
 from sim.model.robot import Robot
-from sim.theory.se2 import body_increment
+from sim.theory.se2 import body_increment, integrate, wrap
+
+compile_all()  # odometry runs over whole blocks: the physics it calls must be compiled
 
 COLUMNS = ("odom_x", "odom_y", "odom_theta")
 
@@ -131,11 +135,10 @@ class DeadReckoner:
 
     def rank(self, heading) -> int:
         """Rank of the rows at one set of wheel headings (n,) rad."""
-        A = self.rows(heading) * self.S
-        return int(np.linalg.matrix_rank(A, tol=RANK_TOL * max(1.0, float(np.abs(A).max()))))
+        return pinv(self.rows(heading), self.S)[1]
 
     def _pinv(self, A):
-        return np.linalg.pinv(A * self.S, rcond=RANK_TOL) * self.S[:, None]
+        return pinv(A, self.S)[0]
 
     def increments(self, dphi, read_heading=None) -> np.ndarray:
         """Body displacements, shape (m, 3) (dx, dy, dtheta in the starting body frame).
@@ -156,30 +159,9 @@ class DeadReckoner:
         else:
             h = np.broadcast_to(self.robot.arrays.heading, (m, len(self.robot.wheels))).copy()
             h[:, self.read] = read_heading
-            P = self._pinv(self.rows(h))
-            xi = np.einsum("mij,mj->mi", P, b)
+            xi = np.empty((m, 3))
+            lstsq_many_into(np.ascontiguousarray(self.rows(h)), b, self.S, xi)
         return body_increment(xi, 1.0)
-
-
-def integrate(pose0, inc) -> np.ndarray:
-    """Poses after each of m body increments from ``pose0``: shape (m, 3).
-
-    ``inc`` (m, 3) holds (dx, dy, dtheta) in the body frame at the start of each
-    step.  Sequential sums (cumulative sums seeded with the start), so a block
-    gives the same numbers as the same increments one at a time.
-    """
-    inc = np.asarray(inc, dtype=float)
-    p0 = np.asarray(pose0, dtype=float)
-    th = np.cumsum(np.concatenate([[p0[2]], inc[:, 2]]))
-    c, s = np.cos(th[:-1]), np.sin(th[:-1])
-    x = np.cumsum(np.concatenate([[p0[0]], c * inc[:, 0] - s * inc[:, 1]]))
-    y = np.cumsum(np.concatenate([[p0[1]], s * inc[:, 0] + c * inc[:, 1]]))
-    return np.stack([x[1:], y[1:], th[1:]], axis=1)
-
-
-def wrap(a):
-    """Angles (rad) wrapped to [-pi, pi)."""
-    return (np.asarray(a, dtype=float) + math.pi) % (2 * math.pi) - math.pi
 
 
 class Odometer:

@@ -33,7 +33,8 @@ import numpy as np
 
 from sim.errors import InputError
 from sim.files.fields import cell_number, csv_header, csv_records
-from sim.odometry.encoders import DeadReckoner, integrate, wrap
+from sim.odometry.encoders import DeadReckoner
+from sim.theory.se2 import integrate, wrap
 from sim.model.robot import Robot
 
 KEYS = ("radius", "x", "y")

@@ -189,7 +189,7 @@ def _segments(scen: Scenario, chunk: int):
 def simulator_for(scen: Scenario) -> Simulator:
     """A simulator at the scenario's start, with its step and policies."""
     return Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance,
-                     skid=getattr(scen, "skid", True))
+                     skid=scen.skid)
 
 
 def _blocks(scen, odo, on_row):

@@ -122,6 +122,22 @@ def null_basis_into(A, m, scale, N):
     return k
 
 
+@physics
+def lstsq_many_into(A, b, scale, out):
+    """Minimum-norm least squares (as :func:`pinv_into`) of each of m systems: rows
+    ``A`` (m, r, 3), right-hand sides ``b`` (m, r); solutions into ``out`` (m, 3)."""
+    r = A.shape[1]
+    W = np.empty((max(r, 1), 3))
+    Pm = np.empty((3, max(r, 1)))
+    for i in range(A.shape[0]):
+        pinv_into(A[i], r, scale, W, Pm)
+        for k in range(3):
+            acc = 0.0
+            for j in range(r):
+                acc += Pm[k, j] * b[i, j]
+            out[i, k] = acc
+
+
 def lstsq(A, b, scale=None):
     """Minimum-norm least squares of ``A`` (m, 3) x = ``b`` (m,) in the metric ``scale``:
     returns (x (3,), rank)."""

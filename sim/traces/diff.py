@@ -40,6 +40,7 @@ from operator import itemgetter
 import numpy as np
 
 from sim.errors import InputError
+from sim.theory.se2 import wrap
 from sim.traces.tolerance import DEFAULT_TOLERANCE
 from sim.traces.csvread import CHUNK_BYTES, Cells, TraceFile, floats
 
@@ -146,7 +147,7 @@ class DiffReport:
         if self.final_a is None or self.final_b is None:
             return None
         (xa, ya, ta), (xb, yb, tb) = self.final_a, self.final_b
-        return math.hypot(xb - xa, yb - ya), abs(_wrap(tb - ta))
+        return math.hypot(xb - xa, yb - ya), abs(wrap(tb - ta))
 
     def summary(self) -> str:
         """One short phrase for tables: where and in what it first diverged."""
@@ -230,10 +231,6 @@ class DiffReport:
                         for c in self.compared},
             "final": None if fd is None else {"position": fd[0], "heading_deg": math.degrees(fd[1])},
         }
-
-
-def _wrap(a):
-    return (a + math.pi) % (2 * math.pi) - math.pi
 
 
 def _t(t) -> str:
