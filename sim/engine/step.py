@@ -2,7 +2,7 @@
 
 :func:`step_into` does, for row k (see :mod:`sim.engine.record` for what a row holds):
 
-1. commands: under a twist command the inverse kinematics
+1. commands: under a new twist command the inverse kinematics
    (:func:`sim.theory.kinematics.inverse_into`: projection onto what the fixed
    wheels allow or skid-steer least squares, steering angles within limits,
    scaling under ``max_spin``) gives steering goals and spin targets;
@@ -39,8 +39,9 @@ State lives in plain arrays owned by the simulator:
     the wheels (:attr:`sim.model.robot.Robot.packed`).
 ``S`` (NSTATE, n)
     per-wheel state: rows ``HEAD`` (rad), ``SPIN`` (rad/s), ``ANGLE`` (rad),
-    ``SPIN_CMD`` (rad/s), ``STEER_CMD`` (rad), and the caches ``FK_HEAD``,
-    ``IK_HEAD``, ``IK_STEER``, ``IK_SPIN``, ``TARGET`` (scratch).
+    ``SPIN_CMD`` (rad/s), ``STEER_CMD`` (rad), and the caches ``FK_HEAD``
+    (angles of the rows in ``A``), ``IK_HEAD`` (angles the request was resolved
+    at), ``IK_STEER``, ``IK_SPIN`` (the request's wheel commands), ``TARGET`` (scratch).
 ``g`` (NG,)
     everything else: pose, command, settings, metric, admissible basis, cache flags.
 ``A`` (2n, 3), ``Pm`` (3, 2n), ``rows`` (2, 2n) int, ``Wk`` (2n, 3)
@@ -108,15 +109,16 @@ def step_into(P, S, g, A, Pm, rows, Wk, out):
     spin = S[SPIN]
     target = S[TARGET]
     info = g[G_INFO:G_INFO + NINFO]
-    # 1. inverse kinematics (kept while the request and the angles stay the same)
+    # 1. inverse kinematics, once per request: the goals it picks depend on the angles at the time
+    #    only through the choice between an angle and its opposite, which turning toward the
+    #    chosen one keeps; a driven castor's spin depends on its angle, so it is redone when one swivels
     if twist_mode:
-        same = g[G_IK_OK] != 0.0
-        if same:
+        if g[G_IK_OK] != 0.0:
             for i in range(n):
-                if S[IK_HEAD, i] != head[i]:
-                    same = False
+                if P[P_CODE, i] == CASTOR and P[P_DRIVEN, i] != 0.0 and S[IK_HEAD, i] != head[i]:
+                    g[G_IK_OK] = 0.0
                     break
-        if not same:
+        if g[G_IK_OK] == 0.0:
             inverse_into(P, g[G_SCALE:G_SCALE + 3], g[G_N:G_N + 9].reshape((3, 3)), int(g[G_NK]),
                          g[G_CMD:G_CMD + 3], head, g[G_SKID] != 0.0, S[IK_STEER], S[IK_SPIN], info)
             for i in range(n):
