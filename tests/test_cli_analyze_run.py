@@ -63,6 +63,38 @@ def test_analyze_matrices_at_given_steering(cli, textbook):
     assert "C1s  no-sliding rows, steered wheels" in out
 
 
+def test_castor_rows_hold_with_the_printed_c2(cli, write_files, tmp_path):
+    # a castor at 60 deg on a base driving straight at 0.4 m/s, trail 0.05 m.  By hand (rigid-body
+    # kinematics, common practice): the contact point, trail d behind the axis, slides nowhere
+    # sideways, so n . v_axis - d hdot = 0 with n = (-sin h, cos h): hdot = -0.4 sin 60 deg / 0.05.
+    p = write_files(tmp_path, {"c.yaml": """
+        wheels:
+          - {name: left, type: fixed, x: 0.0, y: 0.2, radius: 0.1}
+          - {name: right, type: fixed, x: 0.0, y: -0.2, radius: 0.1}
+          - {name: cas, type: castor, x: 0.3, y: 0.0, radius: 0.04, trail: 0.05}
+    """})["c.yaml"]
+    xi = np.array([0.4, 0.0, 0.0])
+    hdot = -0.4 * math.sin(math.radians(60)) / 0.05
+    assert hdot == pytest.approx(-6.9282, abs=1e-4)
+    code, out, err = cli(["analyze", p, "--json", "--matrices", "--steer", "cas=60deg"])
+    assert code == 0, err
+    m = json.loads(out)["matrices"]
+    assert m["C2"] == [-0.05]
+    assert np.dot(m["C1c"][0], xi) + m["C2"][0] * hdot == pytest.approx(0.0, abs=1e-12)
+    # the text states the equation and prints the same numbers
+    code, out, err = cli(["analyze", p, "--matrices", "--steer", "cas=60deg"])
+    assert "C1c xi + C2 hdot = 0" in out
+    row = next(ln for ln in out.splitlines() if ln.strip().startswith("cas ") and "." in ln)
+    c1c = np.array([float(v) for v in row.split()[1:]])
+    c2 = float(out.split("C2   minus the castor trails (m): cas ")[1].split()[0])
+    assert c2 == -0.05
+    assert np.dot(c1c, xi) + c2 * hdot == pytest.approx(0.0, abs=1e-5)     # 6 printed decimals
+    # and the engine's castor turns at that rate (one small step from 60 deg)
+    from sim.theory.castor import swivel
+    h1 = swivel(np.array([math.radians(60)]), np.array([0.3]), np.array([0.0]), np.array([0.05]), xi, 1e-6)[0]
+    assert (h1 - math.radians(60)) / 1e-6 == pytest.approx(hdot, rel=1e-5)
+
+
 @pytest.mark.parametrize("arg,fragment", [("front_lef=10deg", "did you mean 'front_left'"),
                                           ("rear_left=10deg", "only steered and castor"),
                                           ("front_left", "NAME=ANGLE"),
