@@ -155,10 +155,11 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
 
     scen = load_scenario(path)
     rep = None
+    missing = None
     if baselines_dir is None:
         res = run_scenario(scen)
     else:
-        from sim.runs.baseline import record, run_against
+        from sim.runs.baseline import missing_message, record, run_against
         bpath = baseline_path(baselines_dir, rel or os.path.basename(path))
         out["baseline"] = bpath
         if update:
@@ -166,6 +167,10 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
             out["change"] = change
             if old is not None:
                 out["first_divergence"] = "diverged " + old.summary() if old.diverged else old.status
+        elif not os.path.isfile(bpath):
+            # still run it: a failing check is reported beside the missing baseline
+            res = run_scenario(scen)
+            missing = f"{bpath}: {missing_message()}"
         else:
             res, rep, notes = run_against(scen, bpath, tol, rules)
     if res.interrupted:
@@ -178,10 +183,15 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
     if failed:
         out["result"] = "check failed"
         out["details"] += failed
+    elif missing:
+        out["result"] = "input error"
     elif diverged:
         out["result"] = "diverged"
     else:
         out["result"] = "pass"
+    if missing:
+        out["first_divergence"] = "no baseline"
+        out["details"].append(missing)
     if diverged:
         out["details"] += rep.text("baseline", "run").splitlines() + [f"note {n}" for n in notes]
 
