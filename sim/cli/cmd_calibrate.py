@@ -62,7 +62,10 @@ def run(args) -> int:
     from sim.errors import InputError
     from sim.files.robotfile import load_robot
 
+    from sim.cli.options import print_warnings
+
     robot = load_robot(args.robot)
+    print_warnings(robot)
     out = args.output or f"{os.path.splitext(os.path.basename(args.robot))[0]}-calibrated.yaml"
     if args.fit:
         return _fit(args, robot, out)
@@ -79,6 +82,7 @@ def run(args) -> int:
     sim = dict(speed=args.speed, turn_rate=args.turn_rate, dt=args.step)
     if args.true_robot:
         true = load_robot(args.true_robot)
+        print_warnings(true)
         C.belief_spec(true, robot, (dd.left, dd.right))   # same wheels?
         side = C.DEFAULT_SIDE if args.side is None else args.side
         before = C.square_test(true, robot, args.runs, side, count_noise=args.count_noise, seed=args.seed, **sim)

@@ -34,6 +34,8 @@ def run(args) -> int:
     if not 0 <= args.deadband < 1:
         raise InputError("--deadband", None, f"must be in [0, 1), got {args.deadband:g}")
     robot = load_robot(args.robot)
+    from sim.cli.options import print_warnings
+    print_warnings(robot)
     session = DriveSession(robot, args.robot, step=args.step, record=args.record, align=args.align,
                            deadband=args.deadband)
     try:

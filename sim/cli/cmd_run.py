@@ -33,6 +33,8 @@ def run(args) -> int:
         from sim.errors import require
         require("pygame", "--window/--png/--frames")
     scen = load_scenario(args.scenario)
+    from sim.cli.options import print_warnings
+    print_warnings(scen)
     if args.baseline:
         return _run_baseline(args, scen)
     if args.window or args.png or args.frames:

@@ -132,11 +132,12 @@ def run_one(path, baselines_dir, update, rel=None, tol=DEFAULT_TOLERANCE, rules=
     Keys: ``scenario`` (path), ``result`` (one of :data:`RESULTS`), ``wall``
     (s), ``peak_slip`` (m/s or None), ``first_divergence`` (short text),
     ``baseline`` (path or None), ``change`` (``new`` | ``changed`` |
-    ``metadata`` | ``unchanged`` | None), ``details`` (list of lines explaining a non-pass).
+    ``metadata`` | ``unchanged`` | None), ``details`` (list of lines explaining a non-pass),
+    ``warnings`` (plausibility warnings of the scenario and its robot, ``file:line: warning: ...``).
     """
     t0 = time.perf_counter()
     out = {"scenario": os.fspath(path), "result": "crashed", "wall": 0.0, "peak_slip": None,
-           "first_divergence": "", "baseline": None, "change": None, "details": []}
+           "first_divergence": "", "baseline": None, "change": None, "details": [], "warnings": []}
     try:
         _run_one(out, os.fspath(path), baselines_dir, update, rel, tol, list(rules))
     except InputError as exc:
@@ -154,6 +155,7 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
     from sim.files.scenario import load_scenario
 
     scen = load_scenario(path)
+    out["warnings"] = [str(w) for w in scen.warnings]
     rep = None
     missing = None
     if baselines_dir is None:
@@ -253,7 +255,7 @@ def worker_context():
 
 def died(path, why) -> dict:
     return {"scenario": path, "result": "crashed", "wall": 0.0, "peak_slip": None,
-            "first_divergence": "", "baseline": None, "change": None, "details": [why]}
+            "first_divergence": "", "baseline": None, "change": None, "details": [why], "warnings": []}
 
 
 def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLERANCE, rules=(),
