@@ -348,3 +348,31 @@ def test_ball_wheels_are_grey_discs_unlike_the_origin_dot():
         assert tuple(img[v, u + render.BALL_MIN_PX - 3]) == PALETTE["ball"]
         r = render.BALL_MIN_PX
         assert all(colour_near(img, u + du, v + dv, PALETTE["ink"]) for du, dv in ((r, 0), (-r, 0), (0, r), (0, -r)))
+
+
+def test_png_at_a_time_is_that_frame(cli, tmp_path):
+    scen = SCENARIOS / "field-rover-skid-turn.yaml"
+    code, out, err = cli(["run", scen, "--png", tmp_path / "at.png", "--at", "2.5"])
+    assert code == 0, err
+    assert "picture   " + str(tmp_path / "at.png") + " (at t = 2.5 s)" in out
+    code, _, err = cli(["run", scen, "--frames", tmp_path / "f", "--fps", "2"])
+    assert code == 0, err
+    load = lambda p: to_array(render._pg().image.load(str(p)))
+    at = load(tmp_path / "at.png")
+    # the same state, trail and view as the frame written at t = 2.5 s
+    assert np.array_equal(at, load(tmp_path / "f" / "frame-000005.png"))
+    # mid-turn every wheel but the middle pair skids: vermillion arrows; at the end the base is at rest
+    code, _, err = cli(["run", scen, "--png", tmp_path / "end.png"])
+    assert code == 0, err
+    skid = lambda img: int(np.all(img[:, PANEL_W:] == np.array(PALETTE["skid"], np.uint8), axis=-1).sum())
+    assert skid(at) > 300 and skid(load(tmp_path / "end.png")) < 50
+
+
+def test_at_needs_png_and_a_time_within_the_run(cli, expect_input_error, tmp_path):
+    scen = SCENARIOS / "field-rover-skid-turn.yaml"
+    code, _, err = cli(["run", scen, "--at", "2"])
+    expect_input_error(code, err, "--at", None, "needs --png")
+    for bad in ("-1", "6.5", "nan"):
+        code, _, err = cli(["run", scen, "--png", tmp_path / "a.png", "--at", bad])
+        expect_input_error(code, err, "--at", None, "from 0 to the end of the run (6 s)")
+    assert list(tmp_path.iterdir()) == []

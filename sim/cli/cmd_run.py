@@ -17,6 +17,8 @@ def add_arguments(p):
     p.add_argument("--window", action="store_true",
                    help="watch the run in a window in real time (h in the window lists the keys)")
     p.add_argument("--png", metavar="PATH", help="write the final frame as a PNG (no display needed)")
+    p.add_argument("--at", type=float, metavar="T",
+                   help="with --png: picture the run at time T s (the step nearest T) instead of its end")
     p.add_argument("--frames", metavar="DIR", help="write numbered PNG frames into DIR")
     p.add_argument("--fps", type=float, default=30.0, metavar="N",
                    help="frames per second of run time for --frames (default 30)")
@@ -35,17 +37,20 @@ def run(args) -> int:
     scen = load_scenario(args.scenario)
     from sim.cli.options import print_warnings
     print_warnings(scen)
+    if args.at is not None and not args.png:
+        raise InputError("--at", None, "needs --png PATH (the picture of the run at that time)")
     if args.baseline:
         return _run_baseline(args, scen)
     if args.window or args.png or args.frames:
-        from sim.view.playback import view_run
+        from sim.view.playback import at_step, view_run
         res = view_run(scen, csv=args.csv, every=args.every, window=args.window, png=args.png,
-                       frames=args.frames, fps=args.fps)
+                       frames=args.frames, fps=args.fps, at=args.at)
     else:
         res = run_scenario(scen, csv=args.csv, every=args.every)
     print(summary_text(res))
     if args.png:
-        print(f"picture   {args.png}")
+        print(f"picture   {args.png}" + (f" (at t = {at_step(scen, args.at) * scen.step:g} s)"
+                                         if args.at is not None else ""))
     if args.frames:
         print(f"frames    {args.frames}/ at {args.fps:g} per second of run time")
     if args.csv:

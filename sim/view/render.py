@@ -273,6 +273,19 @@ class Renderer:
         self.peak = (0.0, 0.0)
         self._ghost_from = None
 
+    def snapshot(self) -> tuple:
+        """What :meth:`observe` has gathered (trail, earlier footprints, peak slip), to :meth:`restore` later.
+
+        The bounds are not part of it: they keep covering everything seen.
+        """
+        return (tuple(self.trail), tuple(self.ghosts), self.peak, self._ghost_from)
+
+    def restore(self, snap) -> None:
+        """Go back to a :meth:`snapshot` (the bounds stay)."""
+        trail, ghosts, self.peak, self._ghost_from = snap
+        self.trail = deque(trail, maxlen=TRAIL_LEN)
+        self.ghosts = deque(ghosts, maxlen=GHOST_LEN)
+
     def observe(self, row) -> None:
         """Take row k into the trail, the bounds and the peak slip."""
         x, y, th = (float(v) for v in row.pose)
