@@ -185,12 +185,14 @@ class _Player:
             time.sleep(wait)
 
     def linger(self, res):
-        """After the run: keep showing the last frame until the user quits or restarts."""
+        """After the run: keep showing the last frame, with each check's PASS / FAIL, until
+        the user quits or restarts."""
         self.paused = False
+        checks = [(c.passed, c.text) for c in res.checks]
         while True:
             if self._keys(finished=True):
                 return
-            self._show(self.last, "finished")
+            self._show(self.last, "finished", checks)
             time.sleep(0.03)
 
     # -- window ---------------------------------------------------------------
@@ -198,9 +200,13 @@ class _Player:
         speed = f"x{self.speed:g}"
         self.win.set_title(f"trundle  {self.rd.title}  {state}  {speed}  (h: help)")
 
-    def _show(self, row, state=None):
-        self._title(state or ("paused" if self.paused else "playing"))
-        self.win.show(self.rd.draw(row), HELP if self.help else None)
+    def _show(self, row, state=None, checks=()):
+        """Draw ``row`` in the window with the state, speed (and checks) in the picture and the title."""
+        from sim.view.render import Status
+
+        state = state or ("paused" if self.paused else "playing")
+        self._title(state)
+        self.win.show(self.rd.draw(row, status=Status(state, self.speed, checks)), HELP if self.help else None)
 
     def _keys(self, finished=False):
         """Handle input; True when the user quits after the run has finished."""
