@@ -858,7 +858,8 @@ class Window:
 
     :meth:`events` returns tuples: ``("key", name)`` with pygame's key name
     (``"up"``, ``"w"``, ``"space"``, ``"escape"``; ``=``, ``]`` and keypad plus
-    read ``"+"``, ``[`` and keypad minus ``"-"``), ``("quit",)``,
+    read ``"+"``, ``[`` and keypad minus ``"-"``), ``("keyup", name)`` when it
+    is released, ``("unfocus",)`` when the window loses the keyboard, ``("quit",)``,
     ``("zoom", factor, (u, v))`` and ``("pan", du, dv)`` (px).
     ``hidden=True`` opens no visible window (tests, with the dummy driver).
     """
@@ -886,6 +887,7 @@ class Window:
         if key_repeat:
             pg.key.set_repeat(*key_repeat)
         self._clock = pg.time.Clock()
+        self.hidden = hidden
         self._drag = False
         self.stick = None
         if joystick:
@@ -906,6 +908,11 @@ class Window:
             elif ev.type == pg.KEYDOWN:
                 name = pg.key.name(ev.key)
                 out.append(("key", _KEY_ALIASES.get(name, name)))
+            elif ev.type == pg.KEYUP:
+                name = pg.key.name(ev.key)
+                out.append(("keyup", _KEY_ALIASES.get(name, name)))
+            elif ev.type == getattr(pg, "WINDOWFOCUSLOST", None):
+                out.append(("unfocus",))
             elif ev.type == pg.MOUSEWHEEL:
                 out.append(("zoom", 1.2 ** ev.y, pg.mouse.get_pos()))
             elif ev.type == pg.MOUSEBUTTONDOWN and ev.button == 1:
@@ -926,6 +933,21 @@ class Window:
         if self.stick is None:
             return None
         return [self.stick.get_axis(i) for i in range(self.stick.get_numaxes())]
+
+    def buttons(self):
+        """Pressed state (bool) of each button of the first gamepad, or None when there is none."""
+        if self.stick is None:
+            return None
+        return [bool(self.stick.get_button(i)) for i in range(self.stick.get_numbuttons())]
+
+    def keys_down(self, names):
+        """Which of the key ``names`` the keyboard reports held now (a set), or None for a
+        hidden window (tests post their own events, which the keyboard state does not see)."""
+        if self.hidden:
+            return None
+        pg = _pg()
+        pressed = pg.key.get_pressed()
+        return {n for n in names if pressed[pg.key.key_code(n)]}
 
     def show(self, surface, help_lines=None) -> None:
         """Copy ``surface`` to the screen and flip; ``help_lines``: (key, meaning) pairs boxed on top."""
