@@ -352,3 +352,33 @@ def test_command_log_replay_equals_script(tmp_path, scenario_from_yaml):
     b = run_scenario(scenario_from_yaml(tmp_path, head + "script:\n" + tw, "s2.yaml"), keep=True).trace
     assert all(np.array_equal(a[c], b[c], equal_nan=True) for c in a)
     assert np.nanmax(np.abs(a["omega"])) == pytest.approx(0.4)
+
+
+def test_run_json_is_the_summary(cli, tmp_path):
+    scen = pathlib.Path(__file__).resolve().parents[1] / "scenarios" / "field-rover-skid-turn.yaml"
+    code, out, err = cli(["run", scen, "--json", "--csv", tmp_path / "f.csv"])
+    assert code == 0, err
+    d = json.loads(out)                                     # one JSON object, nothing else on stdout
+    res = run_scenario(load_scenario(scen))
+    assert d["rows"] == res.rows == 601 and d["passed"] is True and d["interrupted"] is False
+    assert d["final_pose"]["x"] == res.final_pose[0] and d["final_pose"]["theta"] == res.final_pose[2]
+    assert d["final_pose"]["theta_deg"] == pytest.approx(math.degrees(res.final_pose[2]), rel=1e-15)
+    assert d["peak_slip"] == {"value": res.peak_slip, "t": res.peak_slip_t}
+    assert d["distance"] == res.distance
+    assert [c["passed"] for c in d["checks"]] == [True, True]
+    assert [c["kind"] for c in d["checks"]] == ["slip_above", "slip_above"]
+    assert d["checks"][1]["at"] == 2.0 and d["checks"][1]["expected"] == {"threshold": 0.1}
+    assert d["checks"][0]["text"] == res.checks[0].text and d["checks"][0]["line"] == res.checks[0].line
+    assert d["notes"] == [] and d["warnings"] == [] and d["trace"] == {"path": str(tmp_path / "f.csv"), "every": 1}
+    # a failing check: the same exit code as the text summary, and passed false
+    bad = tmp_path / "bad.yaml"
+    bad.write_text(scen.read_text().replace("robots/", str(scen.parent / "robots") + "/")
+                   .replace("slip_above: 0.05", "slip_below: 0.05"))
+    code, out, _ = cli(["run", bad, "--json"])
+    d = json.loads(out)
+    assert code == 1 and d["passed"] is False and [c["passed"] for c in d["checks"]] == [False, True]
+    assert cli(["run", bad])[0] == 1
+    # against a baseline: its verdict is in the object
+    code, out, _ = cli(["run", scen, "--json", "--baseline", tmp_path / "f.csv"])
+    d = json.loads(out)
+    assert code == 0 and d["baseline"]["status"] == "identical" and d["baseline"]["diverged"] is False
