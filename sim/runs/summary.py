@@ -5,7 +5,7 @@ recomputed) and returns plain Python values (str, float, int, bool, None,
 lists, dicts): SI units, angles in rad with degrees beside them where people
 read them.  Keys:
 
-``scenario``, ``robot``, ``rows``, ``step`` (s), ``duration`` (s, of the rows
+``scenario``, ``description``, ``robot``, ``rows``, ``step`` (s), ``duration`` (s, of the rows
 run), ``interrupted``, ``passed``; ``distance`` (m); ``final_pose`` {x, y (m),
 theta (rad), theta_deg}; ``peak_slip`` {value (m/s), t (s)}; ``shortfall``
 (None, or the largest twist request the base could not follow: {t, vx, vy,
@@ -61,6 +61,7 @@ def summary_dict(res, warnings=()) -> dict:
                        "line": c.line, "text": c.text, "expected": _plain(spec.params)})
     out = {
         "scenario": s.source,
+        "description": s.description,
         "robot": s.robot.name,
         "rows": int(res.rows),
         "step": s.step,
