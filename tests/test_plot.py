@@ -242,10 +242,10 @@ def test_identical_wheels_are_one_entry_and_different_ones_are_not(tmp_path):
     assert "left" in labels and "right" in labels and not any("identical" in x for x in labels)
 
 
-def test_odometry_estimate_beside_the_truth_and_its_error(tmp_path):
+def test_odometry_estimate_beside_the_truth_and_its_error(tmp_path, arc_trace):
     import pandas
     run_scenario(load_scenario(SCENARIOS / "ward-cart-odometry.yaml"), csv=tmp_path / "o.csv")
-    fig, _ = plot_traces(tmp_path / "o.csv", tmp_path / "o.png")
+    fig = figure([read_trace(tmp_path / "o.csv")])
     ref = pandas.read_csv(tmp_path / "o.csv")                          # read independently with pandas
     est = next(ln for ln in fig.trundle_axes["path"].lines if ln.get_label() == "odometry estimate")
     np.testing.assert_array_equal(est.get_xdata(), ref["odom_x"].to_numpy())
@@ -258,8 +258,7 @@ def test_odometry_estimate_beside_the_truth_and_its_error(tmp_path):
     np.testing.assert_allclose(head.get_ydata(), np.degrees(np.abs(d)), atol=1e-9)
     assert want[-1] > 0.01                                             # the estimate does drift here
     # a trace without odometry has no such panels
-    run_scenario(load_scenario(SCENARIOS / "ward-cart-arc.yaml"), csv=tmp_path / "a.csv")
-    fig, _ = plot_traces(tmp_path / "a.csv", tmp_path / "a.png")
+    fig = figure([read_trace(arc_trace[0])])
     assert fig.trundle_axes["odometry"] is None
     assert not [ln for ln in fig.trundle_axes["path"].lines if "odometry" in ln.get_label()]
 
