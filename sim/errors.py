@@ -33,6 +33,40 @@ class InputError(Exception):
         return f"{where}: {self.message}"
 
 
+class InputWarning:
+    """Something in a file that is allowed but probably not meant (a plausibility warning).
+
+    Printed as ``file:line: warning: message``; it never changes an exit code.
+    Equal warnings (same source, line and message) compare equal, so a file
+    read twice warns once.
+    """
+
+    __slots__ = ("source", "line", "message")
+
+    def __init__(self, source: str | None, line: int | None, message: str):
+        self.source = source
+        self.line = line
+        self.message = message
+
+    def _key(self):
+        return (self.source, self.line, self.message)
+
+    def __eq__(self, other):
+        return isinstance(other, InputWarning) and self._key() == other._key()
+
+    def __hash__(self):
+        return hash(self._key())
+
+    def __repr__(self):
+        return f"InputWarning({self.source!r}, {self.line!r}, {self.message!r})"
+
+    def __str__(self) -> str:
+        where = self.source or "<input>"
+        if self.line is not None:
+            where = f"{where}:{self.line}"
+        return f"{where}: warning: {self.message}"
+
+
 def require(module: str, purpose: str) -> None:
     """Raise :class:`InputError` unless ``module`` can be imported (an optional extra)."""
     import importlib.util

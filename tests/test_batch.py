@@ -237,6 +237,39 @@ def test_missing_baseline_and_bad_arguments(suite, tmp_path, cli, expect_input_e
     expect_input_error(code, err, tmp_path / "empty", None, "found no scenarios")
 
 
+def test_failed_check_and_missing_baseline_are_both_reported(suite, tmp_path, cli):
+    # the end pose asked for is 1 cm off the closed-form arc: the check fails, and there is no baseline
+    import textwrap
+    text = textwrap.dedent(spin_scenario(4.0, 5.0)) + "  - {at: end, pose: {x: 0.0}, tolerance: {position: 0.01}}\n"
+    (suite / "b-arc.yaml").write_text(text)
+    (tmp_path / "empty").mkdir()
+    code, out, _ = cli(["batch", suite / "b-arc.yaml", suite / "a-straight.yaml", "--baselines", tmp_path / "empty",
+                        "--jobs", "1"])
+    assert code == 1
+    rows = dict(table_rows(out))
+    assert rows[str(suite / "b-arc.yaml")] == "check failed"
+    assert rows[str(suite / "a-straight.yaml")] == "input error"          # checks pass, baseline missing
+    table = {ln.split()[0]: ln for ln in out.splitlines() if ln.startswith(str(suite))}
+    assert table[str(suite / "b-arc.yaml")].endswith("no baseline")
+    block = out.split(f"--- {suite / 'b-arc.yaml'}: check failed")[1].split("---")[0]
+    assert "FAIL pose at t=1 s" in block and "baseline not found" in block and str(tmp_path / "empty") in block
+
+
+def test_baseline_of_another_scenario_is_named(suite, tmp_path, cli):
+    import shutil
+    base = tmp_path / "base"
+    assert cli(["batch", suite / "a-straight.yaml", "--baselines", base, "--update", "--jobs", "1"])[0] == 0
+    shutil.copy(base / "a-straight.csv", base / "b-arc.csv")
+    shutil.copy(base / "a-straight.csv.meta.json", base / "b-arc.csv.meta.json")
+    code, out, _ = cli(["batch", suite / "b-arc.yaml", "--baselines", base, "--jobs", "1"])
+    assert code == 1 and dict(table_rows(out))[str(suite / "b-arc.yaml")] == "diverged"
+    assert "recorded from another scenario, 'a-straight.yaml' (this run is 'b-arc.yaml')" in out
+    assert "the scenario file changed" not in out
+    # the same through trundle run --baseline
+    code, out, _ = cli(["run", suite / "b-arc.yaml", "--baseline", base / "b-arc.csv"])
+    assert code == 1 and "'a-straight.yaml'" in out and "the scenario file changed" not in out
+
+
 def test_units_keep_their_order(suite):
     units = [Unit(str(suite / n), n) for n in ("b-arc.yaml", "a-straight.yaml")]
     seen = []

@@ -407,3 +407,106 @@ def test_bad_fit_input(tmp_path, capsys):
     assert main(["calibrate", CART, "--fit", str(good), "--wheels", "left", "-o", str(out)]) == 2
     assert "determine only 2 of the 3" in capsys.readouterr().err
     assert not out.exists() and not list(tmp_path.glob("*.part"))
+
+
+# -- the corrected file ------------------------------------------------------------
+COMMENTED = """\
+# Our test cart: two drive wheels and one castor.
+name: cart            # as on the label
+footprint:
+  length: 0.70
+  width: 0.50
+wheels:
+  - name: left        # drive, left side
+    type: fixed
+    x: 0.0
+    y: 0.22           # measured with a tape
+    radius: "0.08"    # catalogue value
+    max_spin: 25
+    encoder: 2048
+  - {name: right,  type: fixed, x: 0.0, y: -0.22,  radius: 0.08, max_spin: 25, encoder: 2048}   # aligned
+  - name: castor
+    type: castor
+    x: 0.28
+    y: 0.0
+    radius: 0.04
+    trail: 0.03       # swivel offset
+"""
+
+
+def test_corrected_file_keeps_comments_and_layout_and_rounds_to_the_measurement(tmp_path, capsys):
+    nominal = tmp_path / "cart.yaml"
+    nominal.write_text(COMMENTED)
+    belief = load_robot(nominal)
+    true = as_built(belief, 1.003, 1.008)
+    tpath = tmp_path / "as-built.yaml"
+    tpath.write_text(C.robot_yaml(true))
+    out = tmp_path / "fixed.yaml"
+    assert main(["calibrate", str(nominal), "--true", str(tpath), "--runs", "3", "--step", "0.25",
+                 "-o", str(out)]) == 0
+    text = capsys.readouterr().out
+    got = out.read_text().splitlines()
+    assert got[0].startswith("# odometry geometry corrected by trundle calibrate from cart.yaml: left.radius")
+    assert got[1].startswith("# square test (Borenstein & Feng 1996)")
+    want = COMMENTED.splitlines()
+    assert len(got) == len(want) + 2
+    changed = [(a, b) for a, b in zip(want, got[2:]) if a != b]
+    # every other byte is the user's: only the four corrected values differ, comments and quotes kept around them
+    assert [a for a, _ in changed] == ['    y: 0.22           # measured with a tape',
+                                       '    radius: "0.08"    # catalogue value',
+                                       want[13]]
+    assert changed[0][1].endswith("           # measured with a tape")
+    assert changed[1][1].startswith("    radius: 0.0") and changed[1][1].endswith("    # catalogue value")
+    assert changed[2][1].startswith("  - {name: right,  type: fixed, x: 0.0, y: -0.2")
+    assert changed[2][1].endswith(", max_spin: 25, encoder: 2048}   # aligned")
+    # the values: the square test's result rounded to the decade of its standard error, no further
+    fixed = load_robot(out)
+    dd = C.diff_drive(belief)
+    runs = C.square_test(true, belief, runs=3, side=C.DEFAULT_SIDE, dt=0.25)
+    u = C.analyse(runs, dd.b)
+    exact = C.corrected_robot(belief, dd, u.Ed, u.Eb)
+    sigma = C.corrected_uncertainty(u, belief, dd)
+    for (name, key), sg in sigma.items():
+        res = 10.0 ** math.floor(math.log10(sg))
+        assert 1e-9 <= res <= 1e-5
+        v, e = getattr(fixed.wheel(name), key), getattr(exact.wheel(name), key)
+        assert abs(v - e) <= res / 2 * (1 + 1e-9)                     # rounded to res ...
+        assert abs(v / res - round(v / res)) < 1e-6                  # ... and no digit beyond it
+        written = next(t for t in text.splitlines() if t.startswith(f"corrected   {name}:"))
+        assert f"{key} {getattr(belief.wheel(name), key):g} -> {v!r} m" in written
+    # the standard errors by hand: alpha, beta each the mean of two estimates, scatter / 2
+    s = u.scatter / 2
+    assert sigma[("left", "y")] == pytest.approx(0.22 * u.Eb ** 2 * s / (math.pi / 2), rel=1e-12)
+    assert sigma[("left", "radius")] == pytest.approx(0.08 * 0.44 * u.Eb / 4.0 * s / 2, rel=1e-12)
+    # everything the calibration did not touch reads back the same
+    assert replace(fixed, wheels=(), source="") == replace(belief, wheels=(), source="")
+    assert fixed.wheel("castor") == belief.wheel("castor")
+    for name in ("left", "right"):
+        assert replace(fixed.wheel(name), radius=0, y=0) == replace(belief.wheel(name), radius=0, y=0)
+
+
+def test_rewrite_replaces_values_in_place():
+    from sim.files.robotedit import number_text, resolution, rewrite
+    assert resolution(3.2e-7) == 1e-7 and resolution(9e-6) == 1e-6 and resolution(1e-12) == 1e-9
+    assert resolution(0.5) == 1e-3
+    assert number_text(0.0800809123, 1e-7) == "0.0800809" and number_text(-0.2218084, 1e-6) == "-0.221808"
+    assert number_text(0.5000001, 1e-6) == "0.5" and number_text(-1e-9, 1e-6) == "0.0"
+    text = "wheels:\n  - {name: a, x: 0.1, y: '0.2', radius: 0.05}   # c\n  - name: b\n    x: 1\n    y: -2 # d\n"
+    out = rewrite(text, "t.yaml", {("a", "y"): "0.25", ("b", "y"): "-2.5", ("a", "radius"): "0.051"}, ["h"])
+    assert out == ("# h\nwheels:\n  - {name: a, x: 0.1, y: 0.25, radius: 0.051}   # c\n  - name: b\n    x: 1\n"
+                   "    y: -2.5 # d\n")
+    with pytest.raises(InputError, match="no 'radius' of a wheel named 'c'"):
+        rewrite(text, "t.yaml", {("c", "radius"): "1.0"})
+
+
+def test_help_and_readme_agree_on_the_output_name(capsys):
+    with pytest.raises(SystemExit):
+        main(["calibrate", "--help"])
+    import re
+    helptext = re.sub(r"-\s+", "-", " ".join(capsys.readouterr().out.split()))   # argparse wraps at hyphens
+    assert "default STEM-calibrated.yaml in the current directory, STEM being the robot file's name without .yaml" \
+        in helptext
+    with open(os.path.join(HERE, "..", "README.md"), encoding="utf-8") as fh:
+        readme = " ".join(fh.read().split())
+    assert "default `STEM-calibrated.yaml` in the current directory, STEM being the robot file's name without " \
+           "`.yaml`" in readme

@@ -63,6 +63,38 @@ def test_analyze_matrices_at_given_steering(cli, textbook):
     assert "C1s  no-sliding rows, steered wheels" in out
 
 
+def test_castor_rows_hold_with_the_printed_c2(cli, write_files, tmp_path):
+    # a castor at 60 deg on a base driving straight at 0.4 m/s, trail 0.05 m.  By hand (rigid-body
+    # kinematics, common practice): the contact point, trail d behind the axis, slides nowhere
+    # sideways, so n . v_axis - d hdot = 0 with n = (-sin h, cos h): hdot = -0.4 sin 60 deg / 0.05.
+    p = write_files(tmp_path, {"c.yaml": """
+        wheels:
+          - {name: left, type: fixed, x: 0.0, y: 0.2, radius: 0.1}
+          - {name: right, type: fixed, x: 0.0, y: -0.2, radius: 0.1}
+          - {name: cas, type: castor, x: 0.3, y: 0.0, radius: 0.04, trail: 0.05}
+    """})["c.yaml"]
+    xi = np.array([0.4, 0.0, 0.0])
+    hdot = -0.4 * math.sin(math.radians(60)) / 0.05
+    assert hdot == pytest.approx(-6.9282, abs=1e-4)
+    code, out, err = cli(["analyze", p, "--json", "--matrices", "--steer", "cas=60deg"])
+    assert code == 0, err
+    m = json.loads(out)["matrices"]
+    assert m["C2"] == [-0.05]
+    assert np.dot(m["C1c"][0], xi) + m["C2"][0] * hdot == pytest.approx(0.0, abs=1e-12)
+    # the text states the equation and prints the same numbers
+    code, out, err = cli(["analyze", p, "--matrices", "--steer", "cas=60deg"])
+    assert "C1c xi + C2 hdot = 0" in out
+    row = next(ln for ln in out.splitlines() if ln.strip().startswith("cas ") and "." in ln)
+    c1c = np.array([float(v) for v in row.split()[1:]])
+    c2 = float(out.split("C2   minus the castor trails (m): cas ")[1].split()[0])
+    assert c2 == -0.05
+    assert np.dot(c1c, xi) + c2 * hdot == pytest.approx(0.0, abs=1e-5)     # 6 printed decimals
+    # and the engine's castor turns at that rate (one small step from 60 deg)
+    from sim.theory.castor import swivel
+    h1 = swivel(np.array([math.radians(60)]), np.array([0.3]), np.array([0.0]), np.array([0.05]), xi, 1e-6)[0]
+    assert (h1 - math.radians(60)) / 1e-6 == pytest.approx(hdot, rel=1e-5)
+
+
 @pytest.mark.parametrize("arg,fragment", [("front_lef=10deg", "did you mean 'front_left'"),
                                           ("rear_left=10deg", "only steered and castor"),
                                           ("front_left", "NAME=ANGLE"),
@@ -320,3 +352,33 @@ def test_command_log_replay_equals_script(tmp_path, scenario_from_yaml):
     b = run_scenario(scenario_from_yaml(tmp_path, head + "script:\n" + tw, "s2.yaml"), keep=True).trace
     assert all(np.array_equal(a[c], b[c], equal_nan=True) for c in a)
     assert np.nanmax(np.abs(a["omega"])) == pytest.approx(0.4)
+
+
+def test_run_json_is_the_summary(cli, tmp_path):
+    scen = pathlib.Path(__file__).resolve().parents[1] / "scenarios" / "field-rover-skid-turn.yaml"
+    code, out, err = cli(["run", scen, "--json", "--csv", tmp_path / "f.csv"])
+    assert code == 0, err
+    d = json.loads(out)                                     # one JSON object, nothing else on stdout
+    res = run_scenario(load_scenario(scen))
+    assert d["rows"] == res.rows == 601 and d["passed"] is True and d["interrupted"] is False
+    assert d["final_pose"]["x"] == res.final_pose[0] and d["final_pose"]["theta"] == res.final_pose[2]
+    assert d["final_pose"]["theta_deg"] == pytest.approx(math.degrees(res.final_pose[2]), rel=1e-15)
+    assert d["peak_slip"] == {"value": res.peak_slip, "t": res.peak_slip_t}
+    assert d["distance"] == res.distance
+    assert [c["passed"] for c in d["checks"]] == [True, True]
+    assert [c["kind"] for c in d["checks"]] == ["slip_above", "slip_above"]
+    assert d["checks"][1]["at"] == 2.0 and d["checks"][1]["expected"] == {"threshold": 0.1}
+    assert d["checks"][0]["text"] == res.checks[0].text and d["checks"][0]["line"] == res.checks[0].line
+    assert d["notes"] == [] and d["warnings"] == [] and d["trace"] == {"path": str(tmp_path / "f.csv"), "every": 1}
+    # a failing check: the same exit code as the text summary, and passed false
+    bad = tmp_path / "bad.yaml"
+    bad.write_text(scen.read_text().replace("robots/", str(scen.parent / "robots") + "/")
+                   .replace("slip_above: 0.05", "slip_below: 0.05"))
+    code, out, _ = cli(["run", bad, "--json"])
+    d = json.loads(out)
+    assert code == 1 and d["passed"] is False and [c["passed"] for c in d["checks"]] == [False, True]
+    assert cli(["run", bad])[0] == 1
+    # against a baseline: its verdict is in the object
+    code, out, _ = cli(["run", scen, "--json", "--baseline", tmp_path / "f.csv"])
+    d = json.loads(out)
+    assert code == 0 and d["baseline"]["status"] == "identical" and d["baseline"]["diverged"] is False

@@ -130,7 +130,7 @@ def test_rolling_row_is_contact_velocity_along_roller_direction(textbook):
 
 def test_stack_blocks(robot_from_yaml, textbook):
     # Stacking as Campion et al. 1996 / Siegwart et al. 2011: J1 = [J1f; J1s(beta_s)],
-    # C1 = [C1f; C1s(beta_s)], castors give C1c with C2 = diag(d), ball wheels give nothing,
+    # C1 = [C1f; C1s(beta_s)], castors give C1c with C2 = diag(d) (both negated here, see below), ball wheels give nothing,
     # undriven wheels give no rolling row, J2 = diag(r cos gamma).
     robot = robot_from_yaml("""
         wheels:
@@ -150,8 +150,11 @@ def test_stack_blocks(robot_from_yaml, textbook):
     np.testing.assert_allclose(s.J1s[0], textbook.rolling(0.6, 0.0, r(20)), atol=1e-12)
     np.testing.assert_allclose(s.C1f[1], textbook.sliding(0.0, -0.3, 0.0), atol=1e-12)
     np.testing.assert_allclose(s.C1s[0], textbook.sliding(0.6, 0.0, r(20)), atol=1e-12)
-    np.testing.assert_allclose(s.C1c[0], -textbook.castor(-0.4, 0.1, r(150), 0.04)[0], atol=1e-12)
-    np.testing.assert_allclose(s.C2, [0.04])
+    # the textbook castor equation T xi + d betadot = 0 with our row C1c = -T reads C1c xi - d hdot = 0,
+    # so the steering-rate coefficient in C1c xi + C2 hdot = 0 is C2 = -d
+    row, d = textbook.castor(-0.4, 0.1, r(150), 0.04)
+    np.testing.assert_allclose(s.C1c[0], -row, atol=1e-12)
+    np.testing.assert_allclose(s.C2, [-d])
     np.testing.assert_allclose(s.J2, [0.1, 0.06 * math.cos(r(30)), 0.12])
     assert s.J1.shape == (3, 3) and s.C1.shape == (3, 3)
     # at another steering the steered rows move and the fixed ones do not

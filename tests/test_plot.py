@@ -57,7 +57,7 @@ def test_figure_marks_path_end_and_slip_peak(tmp_path):
     slip = np.array([float(r["slip"]) for r in rows])
     t = np.array([float(r["t"]) for r in rows])
     assert tr.peak_slip == slip.max() == res.peak_slip and tr.peak_t == t[np.argmax(slip)]
-    ax_path, ax_slip = fig.axes[0], fig.axes[1]
+    ax_path, ax_slip = fig.trundle_axes["path"], fig.trundle_axes["slip"]
     marks = [ln for ln in ax_slip.lines if ln.get_marker() == "v"]
     assert len(marks) == 1 and (marks[0].get_xdata()[0], marks[0].get_ydata()[0]) == (tr.peak_t, tr.peak_slip)
     # the end square sits at the last pose, and the PNG has the path colour at that pixel
@@ -130,13 +130,13 @@ def test_figure_without_steering_says_so(arc_trace):
     path, _ = arc_trace
     tr = read_trace(path)
     fig = figure([tr])
-    steer_ax = fig.axes[4]
+    steer_ax = fig.trundle_axes["steer"]
     # castors swivel on the arc, so the arc has steering curves; a trace of fixed wheels has none
     assert any(ln.get_label() == "castor_front" for ln in steer_ax.lines)
     tr.data = {k: v for k, v in tr.data.items() if not k.startswith("castor")}
     tr.wheels = ["left", "right"]
-    texts = [t.get_text() for t in figure([tr]).axes[4].texts]
-    assert texts == ["no wheel changes its angle"] and not math.isnan(tr.peak_slip)
+    texts = [t.get_text() for t in figure([tr]).trundle_axes["steer"].texts]
+    assert texts == ["none: no wheel changes its angle"] and not math.isnan(tr.peak_slip)
 
 
 def _write_trace(path, cols):
@@ -184,32 +184,108 @@ def test_legends_cover_no_data(tmp_path, scenario):
     # the omega pulses of the square and vy of the dogleg used to run under the twist legend
     run_scenario(load_scenario(SCENARIOS / f"{scenario}.yaml"), csv=tmp_path / "t.csv")
     fig, _ = plot_traces(tmp_path / "t.csv", tmp_path / "t.png")
-    ax_path, _, ax_tw, ax_spin, ax_steer, ax_w = fig.axes
-    assert _vertices_under_legend(ax_tw, (ax_tw, ax_w)) == 0
-    for ax in (ax_path, ax_spin, ax_steer):
-        assert _vertices_under_legend(ax) == 0, ax.get_title()
+    ax = fig.trundle_axes
+    for name in ("path", "velocity", "turn", "spin", "steer"):
+        assert _vertices_under_legend(ax[name]) == 0, name
     # and the check can fail: the same legend moved to the middle of the panel covers data
-    ax_tw.get_legend().set_loc("center")
+    ax["velocity"].get_legend().set_loc("center")
     fig.canvas.draw()
-    assert _vertices_under_legend(ax_tw, (ax_tw, ax_w)) > 0
+    assert _vertices_under_legend(ax["velocity"]) > 0
 
 
-def test_twist_axes_share_their_zero_line(tmp_path):
-    p = _write_trace(tmp_path / "h.csv", _hand_cols())
+def test_vx_and_omega_never_hide_each_other(tmp_path):
+    # a constant 0.5 m/s beside a constant 0.5 rad/s: on twin axes sharing a zero and each scaled to
+    # its own maximum the two lines used to land on the same pixels
+    n = 41
+    cols = _hand_cols(n)
+    cols.update({"vx": np.full(n, 0.5), "omega": np.full(n, 0.5), "cmd_vx": np.full(n, 0.5),
+                 "cmd_omega": np.full(n, 0.5)})
+    p = _write_trace(tmp_path / "h.csv", cols)
+    fig, _ = plot_traces(p, tmp_path / "h.png")
+    ax_v, ax_w = fig.trundle_axes["velocity"], fig.trundle_axes["turn"]
+    vx = next(ln for ln in ax_v.lines if ln.get_label().startswith("vx"))
+    om = next(ln for ln in ax_w.lines if ln.get_label().startswith("omega"))
+    pv = ax_v.transData.transform(np.column_stack([vx.get_xdata(), vx.get_ydata()]))
+    pw = ax_w.transData.transform(np.column_stack([om.get_xdata(), om.get_ydata()]))
+    assert np.min(np.abs(pv[:, 1][:, None] - pw[:, 1][None, :])) > 50          # px apart, always
+    assert not ax_v.bbox.overlaps(ax_w.bbox)                                    # panels of their own
+    # both show in the picture: pixels of each colour (read back from the PNG)
+    from matplotlib.image import imread
+    rgb = (imread(tmp_path / "h.png")[:, :, :3] * 255).round().astype(int)
+    for line in (vx, om):
+        want = np.array([int(line.get_color()[i:i + 2], 16) for i in (1, 3, 5)])
+        assert int(np.all(np.abs(rgb - want) <= 8, axis=2).sum()) > 300, line.get_label()
+    # both axes show all their data
+    for ax, col in ((ax_v, cols["vx"]), (ax_w, cols["omega"])):
+        lo, hi = ax.get_ylim()
+        assert lo < 0.0 < col.min() and col.max() < hi
+
+
+def test_identical_wheels_are_one_entry_and_different_ones_are_not(tmp_path):
+    from sim.view.plot import identical_groups
+    a, b = np.array([1.0, np.nan, 2.0]), np.array([1.0, np.nan, 2.0 + 1e-13])
+    assert identical_groups(["a", "b", "c"], [(a,), (b,), (a + 0.01,)]) == [["a", "b"], ["c"]]
+    assert identical_groups(["a", "b"], [(a,), (np.array([1.0, 3.0, 2.0]),)]) == [["a"], ["b"]]
+    run_scenario(load_scenario(SCENARIOS / "field-rover-skid-turn.yaml"), csv=tmp_path / "f.csv")
+    fig, (tr,) = plot_traces(tmp_path / "f.csv", tmp_path / "f.png")
+    ax = fig.trundle_axes["spin"]
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    assert labels[:2] == ["left_front = left_middle = left_rear (identical)",
+                          "right_front = right_middle = right_rear (identical)"]
+    solid = [ln for ln in ax.lines if ln.get_linestyle() == "-"]
+    assert len(solid) == 2
+    np.testing.assert_array_equal(solid[1].get_ydata(), tr["right_front.spin"])
+    # the ward cart's left and right wheels turn at different speeds on the arc: two entries
+    run_scenario(load_scenario(SCENARIOS / "ward-cart-arc.yaml"), csv=tmp_path / "a.csv")
+    fig, _ = plot_traces(tmp_path / "a.csv", tmp_path / "a.png")
+    labels = [t.get_text() for t in fig.trundle_axes["spin"].get_legend().get_texts()]
+    assert "left" in labels and "right" in labels and not any("identical" in x for x in labels)
+
+
+def test_odometry_estimate_beside_the_truth_and_its_error(tmp_path, arc_trace):
+    import pandas
+    run_scenario(load_scenario(SCENARIOS / "ward-cart-odometry.yaml"), csv=tmp_path / "o.csv")
+    fig = figure([read_trace(tmp_path / "o.csv")])
+    ref = pandas.read_csv(tmp_path / "o.csv")                          # read independently with pandas
+    est = next(ln for ln in fig.trundle_axes["path"].lines if ln.get_label() == "odometry estimate")
+    np.testing.assert_array_equal(est.get_xdata(), ref["odom_x"].to_numpy())
+    np.testing.assert_array_equal(est.get_ydata(), ref["odom_y"].to_numpy())
+    pos = fig.trundle_axes["odometry"].lines[0]
+    want = np.hypot(ref["odom_x"] - ref["x"], ref["odom_y"] - ref["y"]).to_numpy()
+    np.testing.assert_allclose(pos.get_ydata(), want, rtol=1e-12)
+    head = fig.trundle_axes["odometry_heading"].lines[0]
+    d = np.angle(np.exp(1j * (ref["odom_theta"] - ref["theta"]).to_numpy()))     # wrapped by numpy
+    np.testing.assert_allclose(head.get_ydata(), np.degrees(np.abs(d)), atol=1e-9)
+    assert want[-1] > 0.01                                             # the estimate does drift here
+    # a trace without odometry has no such panels
+    fig = figure([read_trace(arc_trace[0])])
+    assert fig.trundle_axes["odometry"] is None
+    assert not [ln for ln in fig.trundle_axes["path"].lines if "odometry" in ln.get_label()]
+
+
+def test_compare_names_each_trace_in_legends_and_slip_labels(tmp_path):
+    a = _hand_cols()
+    a["slip"] = np.linspace(0.0, 0.2, len(a["t"]))
+    b = _hand_cols()
+    b["slip"] = np.linspace(0.0, 0.1, len(b["t"]))
+    pa, pb = _write_trace(tmp_path / "a.csv", a), _write_trace(tmp_path / "b.csv", b)
+    fig = figure([read_trace(pa), read_trace(pb)])
+    for name in ("velocity", "turn", "spin", "slip"):
+        labels = [t.get_text() for t in fig.trundle_axes[name].get_legend().get_texts()]
+        if name == "slip":
+            assert labels == ["slip a.csv", "slip b.csv"]
+        else:
+            assert "solid: a.csv" in labels and "dotted: b.csv" in labels, name
+    notes = sorted(t.get_text() for t in fig.trundle_axes["slip"].texts)
+    assert notes == ["peak 0.1 m/s at 4 s (b.csv)", "peak 0.2 m/s at 4 s (a.csv)"]
+
+
+def test_empty_panels_say_none(tmp_path):
+    p = _write_trace(tmp_path / "h.csv", _hand_cols())                 # slip 0 throughout, no steering
     fig = figure([read_trace(p)])
-    fig.canvas.draw()
-    ax_tw, ax_w = fig.axes[2], fig.axes[5]
-    assert ax_w.bbox.bounds == ax_tw.bbox.bounds                         # the twin axis
-    y_ms = ax_tw.transData.transform((0.0, 0.0))[1]
-    y_rad = ax_w.transData.transform((0.0, 0.0))[1]
-    assert y_ms == pytest.approx(y_rad, abs=0.01)                         # one zero line, in pixels
-    lo, hi = ax_tw.get_ylim()
-    assert lo < 0 < hi                                                    # omega dips below zero
-    # both axes show all their data (vx from -0.23 to 0.65 m/s, omega from -0.85 to 0.05 rad/s)
-    for ax, name in ((ax_tw, "vx"), (ax_w, "omega")):
-        a, b = ax.get_ylim()
-        col = read_trace(p)[name]
-        assert a < col.min() and col.max() < b
+    assert [t.get_text() for t in fig.trundle_axes["slip"].texts] == ["none: no wheel skids"]
+    assert [t.get_text() for t in fig.trundle_axes["steer"].texts] == ["none: no wheel changes its angle"]
+    assert not fig.trundle_axes["spin"].texts                         # the hand trace's wheel does spin
 
 
 def test_legend_entries_start_end_and_commanded(tmp_path):
@@ -222,7 +298,7 @@ def test_legend_entries_start_end_and_commanded(tmp_path):
     assert "start (circle), end (square)" in [t.get_text() for t in leg.get_texts()]
     markers = {ln.get_marker() for ln in leg.findobj(Line2D) if ln.get_color() == PATH}
     assert {"o", "s"} <= markers                                          # both markers drawn in the entry
-    tleg = fig.axes[2].get_legend()
+    tleg = fig.trundle_axes["velocity"].get_legend()
     labels = [t.get_text() for t in tleg.get_texts()]
     assert "commanded (dashed)" in labels
     handle = tleg.legend_handles[labels.index("commanded (dashed)")]

@@ -17,12 +17,19 @@ def readme_example() -> str:
     return re.search(r"```python\n(.*?)```", section, re.S).group(1)
 
 
+def readme_stated_output() -> str:
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    section = text[text.index("## Python API"):]
+    return re.search(r"It prints\n\n```text\n(.*?)\n```", section, re.S).group(1)
+
+
 def test_readme_python_example_runs():
     code = readme_example()
     assert "Simulator(" in code and "sim.step(" in code
     p = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=60,
                        env=dict(os.environ, PYTHONPATH=str(ROOT)))
     assert p.returncode == 0, p.stderr
+    assert p.stdout.strip() == readme_stated_output()      # the README says what it prints
     nums = [float(v) for v in re.findall(r"[-+]?\d+\.?\d*(?:e[-+]?\d+)?", p.stdout)]
     t, x, y, theta, slip = nums
     # 4 x (200 + 100) steps of 0.01 s: sim.t and sim.pose are the state after step 1199, t = 12 s

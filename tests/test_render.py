@@ -348,3 +348,123 @@ def test_ball_wheels_are_grey_discs_unlike_the_origin_dot():
         assert tuple(img[v, u + render.BALL_MIN_PX - 3]) == PALETTE["ball"]
         r = render.BALL_MIN_PX
         assert all(colour_near(img, u + du, v + dv, PALETTE["ink"]) for du, dv in ((r, 0), (-r, 0), (0, r), (0, -r)))
+
+
+def test_png_at_a_time_is_that_frame(cli, tmp_path):
+    scen = SCENARIOS / "field-rover-skid-turn.yaml"
+    code, out, err = cli(["run", scen, "--png", tmp_path / "at.png", "--at", "2.5"])
+    assert code == 0, err
+    assert "picture   " + str(tmp_path / "at.png") + " (at t = 2.5 s)" in out
+    code, _, err = cli(["run", scen, "--frames", tmp_path / "f", "--fps", "2"])
+    assert code == 0, err
+    load = lambda p: to_array(render._pg().image.load(str(p)))
+    at = load(tmp_path / "at.png")
+    # the same state, trail and view as the frame written at t = 2.5 s
+    assert np.array_equal(at, load(tmp_path / "f" / "frame-000005.png"))
+    # mid-turn every wheel but the middle pair skids: vermillion arrows; at the end the base is at rest
+    code, _, err = cli(["run", scen, "--png", tmp_path / "end.png"])
+    assert code == 0, err
+    skid = lambda img: int(np.all(img[:, PANEL_W:] == np.array(PALETTE["skid"], np.uint8), axis=-1).sum())
+    assert skid(at) > 300 and skid(load(tmp_path / "end.png")) < 50
+
+
+def test_at_needs_png_and_a_time_within_the_run(cli, expect_input_error, tmp_path):
+    scen = SCENARIOS / "field-rover-skid-turn.yaml"
+    code, _, err = cli(["run", scen, "--at", "2"])
+    expect_input_error(code, err, "--at", None, "needs --png")
+    for bad in ("-1", "6.5", "nan"):
+        code, _, err = cli(["run", scen, "--png", tmp_path / "a.png", "--at", bad])
+        expect_input_error(code, err, "--at", None, "from 0 to the end of the run (6 s)")
+    assert list(tmp_path.iterdir()) == []
+
+
+def _text_pixels(text, colour, background, size):
+    """What ``text`` looks like drawn with the renderer's font on ``background`` (pygame's own rendering)."""
+    pg = render._pg()
+    if not pg.font.get_init():
+        pg.font.init()
+    img = pg.font.Font(None, size).render(text, True, colour)
+    surf = pg.Surface(img.get_size(), 0, 32)
+    surf.fill(background)
+    surf.blit(img, (0, 0))
+    return to_array(surf)
+
+
+def _patch(img, rect):
+    return img[rect.top:rect.bottom, rect.left:rect.right]
+
+
+def test_window_shows_state_speed_and_checks_in_the_picture():
+    from sim.view.playback import _Player
+
+    rb = robot("ward-cart")
+    row = run_steps(Simulator(rb, 0.01), 50, wheels={"left": 4.0, "right": 5.0})
+    rd = Renderer(rb, (W, H), "state")
+    rd.view = View((PANEL_W, 0, W - PANEL_W, H), center=(row.pose[0], row.pose[1]), scale=150.0)
+    win = render.Window((W, H), "test", hidden=True, joystick=False)
+    try:
+        player = _Player(rd, win, None, 30.0, 0.01, None)
+        player.speed = 8.0
+        checks = [(True, "slip below 0.001 m/s: peak 0 m/s at t=0 s"),
+                  (False, "pose at t=10 s: position off 0.0308 m, allowed 0.01")]
+        player._show(row, "finished", checks)
+        img = win.pixels()
+        drawn_texts = [(t, r, c, b, s) for t, r, c, b, s in rd.texts if not t.endswith(" m")]
+        words = [t for t, *_ in drawn_texts]
+        assert words == ["finished", "speed x8", "PASS", checks[0][1], "FAIL", checks[1][1]]
+        for text, rect, colour, background, size in drawn_texts:
+            # read back from the window: exactly pygame's rendering of that text, inside the view
+            assert rd.view.inside(rect.left, rect.top) and rd.view.inside(rect.right, rect.bottom)
+            assert np.array_equal(_patch(img, rect), _text_pixels(text, colour, background, size)), text
+        colour_of = {t: c for t, _, c, _, _ in drawn_texts}
+        assert colour_of["PASS"] == PALETTE["body_edge"] and colour_of["FAIL"] == PALETTE["skid"]
+        # while playing, paused: the state and speed only
+        player.speed = 0.25
+        player._show(row)
+        assert [t for t, *_ in rd.texts if not t.endswith(" m")] == ["playing", "speed x0.25"]
+        player.paused = True
+        player._show(row)
+        assert [t for t, *_ in rd.texts if not t.endswith(" m")] == ["paused", "speed x0.25"]
+        assert "paused" in render._pg().display.get_caption()[0]
+    finally:
+        win.close()
+    # PNGs carry no status box: the same pixels as a window frame of the same state without one
+    assert not [t for t, *_ in (rd.draw(row) and rd.texts) if not t.endswith(" m")]
+
+
+def test_grid_labels_whole_signed_and_clear_of_lines_and_insets():
+    rb = robot("field-rover")                   # three axle lines, slanted across the labels
+    row = run_steps(Simulator(rb, 0.01, start=(0.0, 0.0, 0.6)), 30, wheels={w.name: 3.0 for w in rb.wheels})
+    rd = Renderer(rb, (W, H))
+    l, t, w, h = PANEL_W, 0, W - PANEL_W, H
+    crossed = compass_band = 0
+    # 400 px/m: grid every 0.1 m, labels every 0.5 m.  The first view puts the x = -0.5 m line one
+    # pixel left of the view's edge: its label would start inside the view with its minus sign cut off.
+    views = [(0.5025, 0.0)] + [(0.13 * k - 0.4, 0.11 * k - 0.3) for k in range(12)]
+    for cx, cy in views:
+        rd.view = View((l, t, w, h), center=(cx, cy), scale=400.0)
+        img = to_array(rd.draw(row, status=render.Status("paused", 2.0)))
+        labels = [x for x in rd.texts if x[0].endswith(" m")]
+        assert len(labels) >= 3
+        for text, rect, colour, background, size in labels:
+            box = rect.inflate(4, 2)
+            assert l + 2 <= box.left and box.right <= l + w - 2 and t + 2 <= box.top and box.bottom <= t + h - 2
+            assert box.collidelist(rd.reserved) == -1, text                     # not under an inset
+            # the value of the grid line it stands beside, sign included
+            val = float(text[:-2])
+            if rect.top == t + 4:                                                # along the top: x lines
+                assert rd.view.to_world(rect.left - 3, 0)[0] == pytest.approx(val, abs=1.5 / 400)
+            else:                                                                # along the right: y lines
+                assert rd.view.to_world(0, rect.bottom + 2)[1] == pytest.approx(val, abs=1.5 / 400)
+            # drawn whole, on its own paper: the pixels are pygame's rendering of the text
+            assert np.array_equal(_patch(img, rect), _text_pixels(text, colour, background, size)), text
+            ring = np.concatenate([img[box.top:box.bottom, box.left - 1], img[box.top:box.bottom, box.right],
+                                   img[box.top - 1, box.left:box.right], img[box.bottom, box.left:box.right]])
+            crossed += bool(np.any(np.all(ring == np.array(PALETTE["axle"], np.uint8), axis=-1)))
+        if cx == 0.5025:
+            top = sorted((x[1].left, x[0]) for x in labels if x[1].top == t + 4)
+            assert top[0][1] == "0 m" and "-0.5 m" not in [x for _, x in top]
+        v_lines = [rd.view.to_screen(0, 0.5 * k)[1] for k in range(-10, 11)]
+        compass_band += any(t + h - 78 <= v <= t + h - 12 for v in v_lines)
+    assert crossed >= 1            # axle lines do run right up to some labels (and not through them)
+    assert compass_band >= 1       # some labelled y lines pass behind the compass inset (and are not labelled there)

@@ -23,42 +23,63 @@ from sim import load_robot  # noqa: E402
 from sim.view.render import _pg, command_notes  # noqa: E402
 from sim.runs.runner import run_scenario  # noqa: E402
 from sim.files.scenario import load_scenario  # noqa: E402
-from sim.view.teleop import (TeleopConfig, TeleopState, body_twist, deadband, press,  # noqa: E402
-                        stick_axes, sticks)
+from sim.view.teleop import (LEVELS, TeleopConfig, TeleopState, body_twist, deadband, keep_held,  # noqa: E402
+                             key_down, key_up, pad, release_all, request, stick_axes)
 
 from conftest import ROBOTS, ROOT, SCENARIOS  # noqa: E402
 
-CFG = TeleopConfig(speed_step=0.05, turn_step=0.1, max_speed=1.0, max_turn=1.5, deadband=0.15)
+CFG = TeleopConfig(max_speed=1.0, max_turn=1.5, deadband=0.15)
 
 
-def presses(keys, state=None, cfg=CFG):
+def hold(keys, state=None):
     state = state or TeleopState()
     for k in keys:
-        state = press(state, k, cfg)
+        state = key_down(state, k)
     return state
 
 
 # -- pure mapping ---------------------------------------------------------------
 
 
-def test_keys_raise_and_lower_the_request():
-    s = presses(["up"] * 4 + ["w"])
-    assert (s.vx, s.vy, s.omega) == (0.25, 0.0, 0.0)
-    assert presses(["up"] * 7 + ["down"] * 5 + ["s"] * 2).vx == 0.0   # exactly back to zero
-    s = presses(["left", "left", "a", "right", "q", "q", "e", "q"])
-    assert (s.omega, s.vy) == (0.2, 0.1)
-    assert presses(["d"] * 3).omega == -0.3
-    assert presses(["up"] * 100).vx == CFG.max_speed                # capped
-    assert presses(["right"] * 100).omega == -CFG.max_turn
-    s = presses(["up", "left", "q", "space"])
-    assert (s.vx, s.vy, s.omega) == (0.0, 0.0, 0.0)
-    assert presses(["x", "f1"]) == TeleopState()                     # unknown keys: no change
-    assert presses(["escape"]).quit
+def test_a_request_exists_only_while_a_key_is_held():
+    assert list(request(TeleopState(), CFG)) == [0.0, 0.0, 0.0]
+    s = hold(["f"])                                                   # level 2: 25 % of the caps
+    assert list(request(s, CFG)) == [0.25, 0.0, 0.0] and s.source == "keys"
+    s = hold(["f", "f", "f"])                                         # key repeat adds nothing
+    assert list(request(s, CFG)) == [0.25, 0.0, 0.0]
+    s = key_up(s, "f")
+    assert list(request(s, CFG)) == [0.0, 0.0, 0.0] and s.source == "none"
+    # combined keys: an arc; opposite keys cancel
+    assert list(request(hold(["f", "d"]), CFG)) == [0.25, 0.0, 0.375]
+    assert list(request(hold(["v", "g", "s"]), CFG)) == [-0.25, 0.25, -0.375]
+    assert list(request(hold(["f", "v", "h"]), CFG)) == [0.0, -0.25, 0.0]
+    # letting go of one key keeps the other
+    assert list(request(key_up(hold(["f", "d"]), "d"), CFG)) == [0.25, 0.0, 0.0]
+    assert hold(["x", "f12", "up"]) == TeleopState()                  # other keys: no change
+    assert key_up(TeleopState(), "f") == TeleopState()
+    assert hold(["escape"]).quit
+
+
+def test_number_keys_pick_the_speed_level():
+    assert LEVELS == {1: 0.10, 2: 0.25, 3: 0.50, 4: 0.75, 5: 1.00}
+    for key, frac in (("1", 0.1), ("2", 0.25), ("3", 0.5), ("4", 0.75), ("5", 1.0), ("[3]", 0.5)):
+        s = hold([key, "f", "d"])
+        assert request(s, CFG) == pytest.approx([frac * 1.0, 0.0, frac * 1.5], abs=1e-15), key
+    s = hold(["f", "5"])                                              # a level change applies at once
+    assert list(request(s, CFG)) == [1.0, 0.0, 0.0]
+    assert hold(["6", "0"]).level == 2                                # only 1..5
 
 
 def test_frame_and_policy_keys():
-    assert presses(["b"]).frame == "world" and presses(["b", "b"]).frame == "body"
-    assert [presses(["p"] * n).align for n in range(4)] == ["wait", "cosine", "none", "wait"]
+    assert hold(["b"]).frame == "world" and hold(["b", "b"]).frame == "body"
+    assert [hold(["p"] * n).align for n in range(4)] == ["wait", "cosine", "none", "wait"]
+
+
+def test_lost_keyboard_lets_go():
+    s = hold(["f", "d"])
+    assert release_all(s).held == frozenset()
+    assert keep_held(s, {"d", "x"}).held == {"d"}                     # "f" went up unseen
+    assert keep_held(s, {"f", "d"}) is s
 
 
 def test_caps_from_the_robot():
@@ -66,42 +87,59 @@ def test_caps_from_the_robot():
     cfg = TeleopConfig.for_robot(rb)
     assert cfg.max_speed == pytest.approx(25 * 0.08)                  # max_spin x radius
     assert cfg.max_turn == pytest.approx(cfg.max_speed / rb.size)
+    assert cfg.enable_buttons == (4, 5)
 
 
-def test_deadband_and_sticks():
+def test_sticks_drive_only_while_enable_is_held():
     assert deadband(0.1, 0.15) == 0.0 and deadband(-0.15, 0.15) == 0.0
     assert deadband(1.0, 0.15) == 1.0 and deadband(-1.0, 0.15) == -1.0
-    assert deadband(0.575, 0.15) == pytest.approx(0.5)               # (0.575 - 0.15) / 0.85
-    assert deadband(-0.575, 0.15) == pytest.approx(-0.5)
+    assert deadband(0.575, 0.15) == pytest.approx(0.5)                # (0.575 - 0.15) / 0.85
     assert stick_axes([0] * 6) == (1, 0, 3) and stick_axes([0] * 4) == (1, 0, 2)
-    s = sticks(TeleopState(vx=0.3), [0.05, -0.1, 0.0, 0.0, 0.0, 0.0], CFG)
-    assert s.vx == 0.3 and s.source == "keys"                         # sticks at rest leave keys alone
-    s = sticks(s, [0.0, -1.0, 0.0, 0.575, 0.0, 0.0], CFG)             # forward full, turn half right
-    assert (s.vx, s.vy, s.source) == (CFG.max_speed, 0.0, "stick")
-    assert s.omega == pytest.approx(-0.5 * CFG.max_turn)
-    s = sticks(s, [0.0, 0.1, 0.0, 0.0, 0.0, 0.0], CFG)               # released: back to rest
-    assert (s.vx, s.vy, s.omega) == (0.0, 0.0, 0.0)
-    s = press(s, "up", CFG)
-    assert s.source == "keys" and sticks(s, [0.0] * 6, CFG).vx == 0.05
+    full = [0.0, -1.0, 0.0, 0.575, 0.0, 0.0]                          # forward full, turn half right
+    off = [False] * 8
+    on = [False] * 5 + [True, False, False]                          # button 5 held
+    s = pad(TeleopState(), full, off, CFG)
+    assert list(request(s, CFG)) == [0.0, 0.0, 0.0] and s.source == "none"      # no enable: nothing
+    s = pad(s, full, on, CFG)
+    assert s.source == "pad"
+    assert request(s, CFG) == pytest.approx([0.25, 0.0, -0.5 * 0.25 * 1.5])     # level 2 scales the stick
+    s = pad(s, full, off, CFG)                                        # enable let go: stop at once
+    assert list(request(s, CFG)) == [0.0, 0.0, 0.0]
+    s = pad(s, [0.0, 0.1, 0.0, 0.0, 0.0, 0.0], on, CFG)               # centred: nothing
+    assert list(request(s, CFG)) == [0.0, 0.0, 0.0]
+    # held keys take over from the pad
+    s = key_down(pad(s, full, on, CFG), "v")
+    assert list(request(s, CFG)) == [-0.25, 0.0, 0.0] and s.source == "keys"
+    # other enable buttons, and a pad with fewer buttons
+    cfg = TeleopConfig(enable_buttons=(0,))
+    assert pad(TeleopState(), full, [True], cfg).enabled and not pad(TeleopState(), full, [], CFG).enabled
 
 
 def test_world_frame_request_rotates_into_the_body():
     # a world vector seen from a body turned by theta is R(-theta) v (rotation matrices, common practice)
-    s = TeleopState(vx=0.2, vy=0.0, omega=0.1, frame="world")
-    assert body_twist(s, math.pi / 2) == pytest.approx([0.0, -0.2, 0.1], abs=1e-15)
-    s = TeleopState(vx=1.0, vy=0.0, omega=0.0, frame="world")
-    assert body_twist(s, math.radians(30)) == pytest.approx([math.sqrt(3) / 2, -0.5, 0.0])
-    b = TeleopState(vx=0.2, vy=0.1, omega=0.3)
-    assert list(body_twist(b, 1.0)) == [0.2, 0.1, 0.3]
+    s = hold(["5", "f", "d", "b"])
+    cfg = TeleopConfig(max_speed=0.2, max_turn=0.1)
+    assert body_twist(s, math.pi / 2, cfg) == pytest.approx([0.0, -0.2, 0.1], abs=1e-15)
+    cfg = TeleopConfig(max_speed=1.0)
+    assert body_twist(hold(["5", "f", "b"]), math.radians(30), cfg) == pytest.approx([math.sqrt(3) / 2, -0.5, 0.0])
+    assert list(body_twist(hold(["5", "f", "s", "d"]), 1.0, TeleopConfig(0.2, 0.3))) == [0.2, 0.2, 0.3]
 
 
 # -- a session in a hidden window -------------------------------------------------
 
 
-def key(name):
+def _post(kind, name):
     pg = _pg()
     code = pg.key.key_code(name)
-    pg.event.post(pg.event.Event(pg.KEYDOWN, key=code, mod=0, unicode="", scancode=0))
+    pg.event.post(pg.event.Event(kind, key=code, mod=0, unicode="", scancode=0))
+
+
+def down(name):
+    _post(_pg().KEYDOWN, name)
+
+
+def up(name):
+    _post(_pg().KEYUP, name)
 
 
 def read_csv(path):
@@ -129,21 +167,23 @@ def session_factory(tmp_path):
         s.abort()
 
 
-def test_keys_drive_the_recorded_trace(session_factory, tmp_path):
+def test_held_keys_drive_and_letting_go_ramps_to_a_stop(session_factory, tmp_path):
     rec = tmp_path / "drive.csv"
     s = session_factory("ward-cart", record=rec)
-    for _ in range(4):
-        key("up")
-    assert s.frame(100)                                                # 1 s at 0.2 m/s
-    for _ in range(3):
-        key("left")
-    assert s.frame(150)                                                # 1.5 s on an arc
-    key("q")
+    cap = 25 * 0.08                                                    # m/s, max_spin x radius
+    v, w = 0.25 * cap, 0.25 * cap / s.robot.size                      # level 2
+    down("f")
+    assert s.frame(100)                                                # 1 s forward, held
+    down("d")
+    assert s.frame(150)                                                # 1.5 s on an arc, both held
+    down("s")
     assert s.frame(50)                                                 # sideways: a diff drive cannot
     notes = command_notes(s.robot, s.row)
-    key("space")
-    assert s.frame(100)
-    key("escape")
+    up("s")
+    up("d")
+    up("f")
+    assert s.frame(100)                                                # nothing held: the base stops
+    down("escape")
     assert not s.frame(1)
     files = s.close()
     assert {os.path.basename(f) for f in files} >= {"drive.csv", "drive.commands.csv", "drive.scenario.yaml"}
@@ -151,25 +191,36 @@ def test_keys_drive_the_recorded_trace(session_factory, tmp_path):
     tr = read_csv(rec)
     t = tr["t"]
     assert len(t) == 400 and t[-1] == pytest.approx(3.99)
-    np.testing.assert_array_equal(tr["cmd_vx"][:300], 0.2)
-    np.testing.assert_array_equal(tr["cmd_omega"][100:250], 0.3)
+    np.testing.assert_array_equal(tr["cmd_vx"][:300], v)
+    np.testing.assert_array_equal(tr["cmd_omega"][:100], 0.0)
+    np.testing.assert_array_equal(tr["cmd_omega"][100:300], w)
     # straight segment once spun up: x grows by v dt per step (common practice)
     k1, k2 = 30, 99
-    assert tr["vx"][k1] == pytest.approx(0.2, abs=1e-12)
-    assert tr["x"][k2] - tr["x"][k1] == pytest.approx(0.2 * (t[k2] - t[k1]), abs=1e-12)
+    assert tr["vx"][k1] == pytest.approx(v, abs=1e-12)
+    assert tr["x"][k2] - tr["x"][k1] == pytest.approx(v * (t[k2] - t[k1]), abs=1e-12)
     assert tr["y"][k2] == pytest.approx(0.0, abs=1e-12)
     # arc: constant (v, omega) moves a unicycle along a circle of radius v / omega (common practice)
     k1, k2 = 140, 249
-    v, w = 0.2, 0.3
     assert tr["vx"][k1] == pytest.approx(v, abs=1e-9) and tr["omega"][k1] == pytest.approx(w, abs=1e-9)
     th1, dt = tr["theta"][k1], t[k2] - t[k1]
     assert tr["x"][k2] == pytest.approx(tr["x"][k1] + v / w * (math.sin(th1 + w * dt) - math.sin(th1)), abs=1e-9)
     assert tr["y"][k2] == pytest.approx(tr["y"][k1] - v / w * (math.cos(th1 + w * dt) - math.cos(th1)), abs=1e-9)
     # the sideways request is recorded, not followed, and said so
-    np.testing.assert_array_equal(tr["cmd_vy"][250:300], 0.05)
+    np.testing.assert_array_equal(tr["cmd_vy"][250:300], 0.25 * cap)
     assert np.nanmax(np.abs(tr["vy"])) < 1e-12
-    assert any("cannot follow vy 0.050" in n for n in notes)
-    # space: the base comes to rest
+    assert any(f"cannot follow vy {0.25 * cap:.3f}" in n for n in notes)
+    # let go at t = 3 s: the request is 0 and the wheels ramp down at max_spin_accel = 60 rad/s^2, i.e.
+    # by 0.6 rad/s a step (constant deceleration, common practice), all together, until the base stands
+    np.testing.assert_array_equal(tr["cmd_vx"][300:], 0.0)
+    np.testing.assert_array_equal(tr["cmd_omega"][300:], 0.0)
+    # (row 300 holds the state at t = 3 s, still at speed; the ramp runs over the steps from there)
+    spin = np.abs(np.column_stack([tr["left.spin"], tr["right.spin"]]))
+    np.testing.assert_array_equal(spin[300], spin[299])
+    dec = -np.diff(spin[300:], axis=0)
+    fast = int(np.argmax(spin[300]))
+    n_ramp = math.ceil(spin[300, fast] / 0.6)
+    np.testing.assert_allclose(dec[:n_ramp - 1, fast], 0.6, rtol=1e-9)
+    assert np.all(spin[300 + n_ramp:] == 0.0) and n_ramp < 100
     assert tr["vx"][-1] == 0.0 and tr["omega"][-1] == 0.0
     # the replay scenario reproduces the recording byte for byte on the reference engine
     scen = load_scenario(tmp_path / "drive.scenario.yaml")
@@ -177,17 +228,30 @@ def test_keys_drive_the_recorded_trace(session_factory, tmp_path):
     assert (tmp_path / "replay.csv").read_bytes() == rec.read_bytes()
 
 
+def test_losing_the_keyboard_stops_the_base(session_factory):
+    s = session_factory("ward-cart")
+    down("f")
+    assert s.frame(20) and s.row.cmd_twist[0] > 0
+    pg = _pg()
+    if not hasattr(pg, "WINDOWFOCUSLOST"):
+        pytest.skip("pygame without window focus events")
+    pg.event.post(pg.event.Event(pg.WINDOWFOCUSLOST, window=None))
+    assert s.frame(1)
+    assert list(s.row.cmd_twist) == [0.0, 0.0, 0.0] and s.state.held == frozenset()
+
+
 def test_world_frame_strafe_on_a_mecanum_base(session_factory, tmp_path):
     s = session_factory("tote-mecanum", record=tmp_path / "m.csv")
-    key("b")
-    for _ in range(4):
-        key("q")                                                       # world vy 0.2 m/s
-    for _ in range(5):
-        key("left")                                                    # while turning at 0.5 rad/s
+    cap = 30 * 0.05
+    down("b")
+    down("1")                                                          # level 1: 10 %
+    down("s")                                                          # world vy 0.15 m/s
+    down("d")                                                          # while turning
+    w = 0.1 * cap / s.robot.size
     assert s.frame(300)
-    key("p")                                                           # policy change: noted in the replay
+    down("p")                                                          # policy change: noted in the replay
     assert s.frame(10)
-    key("escape")
+    down("escape")
     assert not s.frame(1)
     s.close()
     tr = read_csv(tmp_path / "m.csv")
@@ -195,9 +259,9 @@ def test_world_frame_strafe_on_a_mecanum_base(session_factory, tmp_path):
     vxw = np.diff(tr["x"])[k] / 0.01
     vyw = np.diff(tr["y"])[k] / 0.01
     # in the world frame the base keeps going straight up while it spins (within the
-    # per-step rotation of the body twist, omega dt = 0.005 rad)
-    assert np.max(np.abs(vyw - 0.2)) < 2e-3 and np.max(np.abs(vxw)) < 2e-3
-    assert tr["theta"][299] == pytest.approx(tr["theta"][100] + 0.5 * 1.99, abs=1e-9)
+    # per-step rotation of the body twist, omega dt)
+    assert np.max(np.abs(vyw - 0.1 * cap)) < 2e-3 and np.max(np.abs(vxw)) < 2e-3
+    assert tr["theta"][299] == pytest.approx(tr["theta"][100] + w * 1.99, abs=1e-9)
     text = (tmp_path / "m.scenario.yaml").read_text()
     assert "policy changed to 'cosine'" in text and "align: wait" in text
 
@@ -229,7 +293,7 @@ def xvfb():
 
 def _window_of(proc, env):
     out = subprocess.run(["xdotool", "search", "--sync", "--pid", str(proc.pid)], env=env,
-                         capture_output=True, text=True, timeout=30)
+                         capture_output=True, text=True, timeout=150)   # a first run may compile the engine
     if not out.stdout.split():
         proc.kill()
         pytest.fail(f"no window on {env.get('DISPLAY')}: {out.stderr} / {proc.communicate()}")
@@ -268,19 +332,26 @@ def test_drive_in_a_real_window(xvfb, tmp_path):
     rec = tmp_path / "x.csv"
     proc = subprocess.Popen([sys.executable, "-m", "sim", "drive", ROBOTS / "ward-cart.yaml", "--record", rec],
                             cwd=ROOT, env=xvfb, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    part = tmp_path / "x.csv.part"
+
+    def last_cells():
+        if not part.exists():
+            return []
+        lines = part.read_text().splitlines()[1:]
+        cells = lines[-1].split(",") if lines else []
+        return cells if len(cells) > 10 and cells[10] else []
+
     try:
         _window_of(proc, xvfb)
-        _keys(xvfb, "Up", "Up", "Up")
-        part = tmp_path / "x.csv.part"
-
-        def moving():
-            if not part.exists():
-                return False
-            lines = part.read_text().splitlines()[1:]
-            cells = lines[-1].split(",") if lines else []
-            return len(lines) > 50 and len(cells) > 10 and cells[10] and float(cells[10]) == 0.15
-        _wait_for(moving, "the recorded command to reach 0.15 m/s")
-        _wait_for(lambda: len(part.read_text().splitlines()) > 250, "2 s more of driving")
+        subprocess.run(["xdotool", "keydown", "f"], env=xvfb, timeout=10, check=True)
+        # held: the request is level 2 (25 %) of the cap, 25 rad/s x 0.08 m
+        _wait_for(lambda: (c := last_cells()) and float(c[10]) == 0.5, "the recorded command to reach 0.5 m/s")
+        n = len(part.read_text().splitlines())
+        _wait_for(lambda: len(part.read_text().splitlines()) > n + 100, "1 s more of driving")
+        subprocess.run(["xdotool", "keyup", "f"], env=xvfb, timeout=10, check=True)
+        # let go: the command drops to 0 and the base ramps to a stop (vx is column 4)
+        _wait_for(lambda: (c := last_cells()) and float(c[10]) == 0.0 and float(c[4]) == 0.0,
+                  "the base to stop after the key was let go")
         out, err = _escape(proc, xvfb)
     finally:
         if proc.poll() is None:
@@ -289,7 +360,10 @@ def test_drive_in_a_real_window(xvfb, tmp_path):
     assert proc.returncode == 0, err
     assert rec.exists() and not part.exists()
     tr = read_csv(rec)
-    assert tr["cmd_vx"][-1] == pytest.approx(0.15) and tr["x"][-1] > 0.1
+    held = np.flatnonzero(tr["cmd_vx"] == 0.5)
+    assert len(held) > 100 and tr["x"][-1] > 0.4
+    after = tr["cmd_vx"][held[-1] + 1:]
+    assert len(after) and np.all(after == 0.0) and tr["vx"][-1] == 0.0
     assert (tmp_path / "x.scenario.yaml").exists()
 
 
@@ -305,7 +379,7 @@ def test_run_window_matches_the_headless_picture(xvfb, tmp_path, cli):
         def title():
             return subprocess.run(["xdotool", "getwindowname", wid], env=xvfb, capture_output=True,
                                   text=True, timeout=10).stdout
-        _wait_for(lambda: "finished" in title(), "the run to finish")
+        _wait_for(lambda: "finished" in title(), "the run to finish", 120)
         assert "x8" in title()
         out, err = _escape(proc, xvfb)
     finally:

@@ -43,7 +43,10 @@ def run(args) -> int:
     from sim.view.report import analysis_text, matrices_text
     from sim.files.robotfile import load_robot
 
+    from sim.cli.options import print_warnings
+
     robot = load_robot(args.robot)
+    print_warnings(robot)
     heading = angles_with(robot, _steer(args, robot))
     if args.export:
         from sim.files.cexport import c_header

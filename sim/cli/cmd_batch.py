@@ -84,6 +84,12 @@ def run(args) -> int:
         except KeyboardInterrupt:
             progress.end_line()
             raise
+    seen = set()
+    for r in results:
+        for w in r.get("warnings", ()):
+            if w not in seen:
+                seen.add(w)
+                print(w, file=sys.stderr)
     print(table(results, update=args.update))
     why = details(results)
     if why:

@@ -6,7 +6,9 @@ ROBOT.yaml is the geometry the base's odometry believes (nominal).  Exactly one 
 ``--measured FILE``    square-test return errors taken on the real base (YAML or CSV)
 ``--fit RUN.csv``      fit radii and mount positions to recorded runs (any layout; repeatable)
 
-Writes the corrected robot file (``-o``, default ``NAME-calibrated.yaml`` here).
+Writes the corrected robot file (``-o``, default ``STEM-calibrated.yaml`` in the current directory,
+STEM being the robot file's name without ``.yaml``): the robot file as written, comments and layout
+kept, with only the corrected values replaced, rounded to the digits the measurement supports.
 """
 from __future__ import annotations
 
@@ -35,7 +37,10 @@ def add_arguments(p):
                    help="simulated square: encoder count noise, counts per sqrt(revolution) (default 0)")
     p.add_argument("--seed", type=int, default=0, help="simulated square: random seed (default 0)")
     p.add_argument("--wheels", help="--fit: measured wheels, comma-separated (default: wheels with an encoder)")
-    p.add_argument("-o", "--output", help="corrected robot file (default NAME-calibrated.yaml in this directory)")
+    p.add_argument("-o", "--output",
+                   help="corrected robot file: ROBOT.yaml with the corrected values, comments and layout kept "
+                        "(default STEM-calibrated.yaml in the current directory, STEM being the robot file's "
+                        "name without .yaml)")
     p.add_argument("--plot", metavar="PNG", help="square test: scatter of the return errors (needs matplotlib)")
 
 
@@ -62,7 +67,10 @@ def run(args) -> int:
     from sim.errors import InputError
     from sim.files.robotfile import load_robot
 
+    from sim.cli.options import print_warnings
+
     robot = load_robot(args.robot)
+    print_warnings(robot)
     out = args.output or f"{os.path.splitext(os.path.basename(args.robot))[0]}-calibrated.yaml"
     if args.fit:
         return _fit(args, robot, out)
@@ -79,6 +87,7 @@ def run(args) -> int:
     sim = dict(speed=args.speed, turn_rate=args.turn_rate, dt=args.step)
     if args.true_robot:
         true = load_robot(args.true_robot)
+        print_warnings(true)
         C.belief_spec(true, robot, (dd.left, dd.right))   # same wheels?
         side = C.DEFAULT_SIDE if args.side is None else args.side
         before = C.square_test(true, robot, args.runs, side, count_noise=args.count_noise, seed=args.seed, **sim)
@@ -88,6 +97,9 @@ def run(args) -> int:
         origin = f"measured, {args.measured}: {len(before.cw)} cw and {len(before.ccw)} ccw runs, side {before.side:g} m"
     u = C.analyse(before, dd.b)
     fixed = C.corrected_robot(robot, dd, u.Ed, u.Eb)
+    sigma = C.corrected_uncertainty(u, robot, dd)
+    texts = _texts(fixed, sigma)
+    fixed = _with_texts(fixed, texts)
     lines = [f"square test  {robot.name} ({args.robot}) {origin}", _cg_lines("before", before),
              f"alpha       {math.degrees(u.alpha):.4f} deg per turn (x: {math.degrees(u.alpha_x):.4f}, "
              f"y: {math.degrees(u.alpha_y):.4f})",
@@ -104,8 +116,10 @@ def run(args) -> int:
         ed = (tr.radius / robot.wheel(dd.right).radius) / (tl.radius / robot.wheel(dd.left).radius)
         lines.append(f"true        Ed {ed:.6f}, Eb {(tl.y - tr.y) / dd.b:.6f}  (from {args.true_robot})")
     for name in (dd.left, dd.right):
-        w0, w1 = robot.wheel(name), fixed.wheel(name)
-        lines.append(f"corrected   {name}: radius {w0.radius:.6g} -> {w1.radius:.6g} m, y {w0.y:.6g} -> {w1.y:.6g} m")
+        w0 = robot.wheel(name)
+        lines.append(f"corrected   {name}: radius {w0.radius:g} -> {texts[(name, 'radius')]} m, "
+                     f"y {w0.y:g} -> {texts[(name, 'y')]} m  (standard errors {sigma[(name, 'radius')]:.1g}, "
+                     f"{sigma[(name, 'y')]:.1g} m)")
     after = None
     if args.true_robot:
         after = C.square_test(true, fixed, args.runs, side, count_noise=args.count_noise, seed=args.seed, **sim)
@@ -128,10 +142,12 @@ def run(args) -> int:
         lines.append(f"model check the fitted Ed, Eb reproduce the measured centres of gravity within "
                      f"{gaps.max() * 1e3:.2f} mm (allowed cw {tol[0] * 1e3:.2f}, ccw {tol[1] * 1e3:.2f} mm)")
         lines.append("            drive the square again with the corrected file to confirm the improvement")
-    C.write_text(out, C.robot_yaml(fixed, (
-        f"{robot.name}: odometry geometry corrected by trundle calibrate from {args.robot}",
-        f"square test (Borenstein & Feng 1996): Ed = {u.Ed:.6f}, Eb = {u.Eb:.6f}; {origin}")))
-    lines.append(f"wrote       {out}")
+    from sim.files.robotedit import write_corrected
+    write_corrected(args.robot, out, texts, (
+        f"odometry geometry corrected by trundle calibrate from {os.path.basename(args.robot)}: "
+        f"{', '.join(f'{n}.{k}' for n, k in texts)}",
+        f"square test (Borenstein & Feng 1996): Ed = {u.Ed:.6f}, Eb = {u.Eb:.6f}; {origin}"))
+    lines.append(f"wrote       {out}  (values to the digits the test supports: its standard errors)")
     if args.plot:
         from sim.view.plot import plot_square_test
         if plot_square_test(args.plot, before, after, f"{robot.name}: square test, side {before.side:g} m"):
@@ -140,6 +156,22 @@ def run(args) -> int:
             lines.append("plot        skipped: matplotlib is not installed (pip install matplotlib)")
     print("\n".join(lines))
     return 0
+
+
+def _texts(robot, sigma) -> dict:
+    """``{(wheel, key): number text}``: each value of ``robot`` rounded to the decade of its standard error."""
+    from sim.files.robotedit import number_text, resolution
+    return {(n, k): number_text(getattr(robot.wheel(n), k), resolution(sg)) for (n, k), sg in sigma.items()}
+
+
+def _with_texts(robot, texts):
+    """``robot`` with the values as written (so what is printed, driven and written agree)."""
+    from dataclasses import replace
+    ws = list(robot.wheels)
+    for (n, k), t in texts.items():
+        i = robot.index[n]
+        ws[i] = replace(ws[i], **{k: float(t)})
+    return replace(robot, wheels=tuple(ws))
 
 
 def _with_encoders(robot, dd):
@@ -151,7 +183,7 @@ def _with_encoders(robot, dd):
 
 def _fit(args, robot, out) -> int:
     from sim.files import fields as F
-    from sim.runs.calibrate import robot_yaml, write_text
+    from sim.files.robotedit import write_corrected
     from sim.errors import InputError
     from sim.runs import geomfit as G
 
@@ -175,25 +207,30 @@ def _fit(args, robot, out) -> int:
                          "motions; measure more wheels")
     records = [G.read_record(p, robot, wheels) for p in args.fit]
     res = G.fit_geometry(robot, wheels, records)
+    sigma = {(w, k): float(sg) for (w, k), v0, v, sg in zip(res.params, res.start, res.values, res.sigma)
+             if v != v0}
+    texts = _texts(res.robot, sigma)
+    fitted = _with_texts(robot, texts)
     lines = [f"geometry fit  {robot.name} ({args.robot}), wheels {', '.join(wheels)}; "
              f"{len(records)} run(s), {sum(len(r.t) for r in records)} rows; {res.iterations} damped Gauss-Newton steps",
              f"residual      RMS {res.rms_start:.4g} -> {res.rms:.4g} m per window (motion RMS {res.motion:.4g})"]
-    for (w, k), v0, v in zip(res.params, res.start, res.values):
-        if f"{w}.{k}" in res.undetermined:
+    for (w, k), v0 in zip(res.params, res.start):
+        if f"{w}.{k}" in res.undetermined or (w, k) not in texts:
             continue
-        lines.append(f"  {w + '.' + k:<24} {v0:.6g} -> {v:.6g} m")
+        lines.append(f"  {w + '.' + k:<24} {v0:g} -> {texts[(w, k)]} m  (standard error {sigma[(w, k)]:.1g} m)")
     if res.undetermined:
         lines.append(f"undetermined  {', '.join(res.undetermined)}: these runs do not fix them (kept or only "
                      "combinations fitted); add runs that excite them")
     for rec in records:
         e0 = G.track_errors(G.replay(robot, wheels, rec), rec.pose)
-        e1 = G.track_errors(G.replay(res.robot, wheels, rec), rec.pose)
+        e1 = G.track_errors(G.replay(fitted, wheels, rec), rec.pose)
         lines.append(f"run           {rec.source}: final position error {e0['final_position_error'] * 1e3:.3f} -> "
                      f"{e1['final_position_error'] * 1e3:.3f} mm, heading {math.degrees(e0['final_heading_error']):.4f}"
                      f" -> {math.degrees(e1['final_heading_error']):.4f} deg")
-    write_text(out, robot_yaml(res.robot, (
-        f"{robot.name}: odometry geometry fitted by trundle calibrate from {args.robot}",
-        f"to {', '.join(args.fit)} (wheels {', '.join(wheels)})")))
-    lines.append(f"wrote         {out}")
+    write_corrected(args.robot, out, texts, (
+        f"odometry geometry fitted by trundle calibrate from {os.path.basename(args.robot)}: "
+        f"{', '.join(f'{n}.{k}' for n, k in texts) or 'nothing changed'}",
+        f"to {', '.join(os.path.basename(f) for f in args.fit)} (wheels {', '.join(wheels)})"))
+    lines.append(f"wrote         {out}  (values to the digits the runs support: their standard errors)")
     print("\n".join(lines))
     return 0

@@ -2,7 +2,8 @@
 from __future__ import annotations
 
 NAME = "drive"
-HELP = "drive a base by keyboard or gamepad in a window; optionally record a replayable trace"
+HELP = ("drive a base by hand in a window, hold to drive (keyboard, or a gamepad with an enable button held); "
+        "optionally record a replayable trace")
 
 
 def add_arguments(p):
@@ -15,6 +16,11 @@ def add_arguments(p):
                    help="starting steering policy: wait, cosine or none (default wait; P cycles it while driving)")
     p.add_argument("--deadband", type=float, default=0.15, metavar="D",
                    help="gamepad stick dead band, 0..1 of full deflection (default 0.15)")
+    p.add_argument("--enable-button", type=int, action="append", metavar="N", dest="enable_buttons",
+                   help="gamepad button that must be held for the sticks to drive (repeatable; default: 4 and 5, "
+                        "the shoulder buttons of most pads)")
+    p.add_argument("--level", type=int, default=2, metavar="L",
+                   help="starting speed level 1-5: 10, 25, 50, 75 or 100 %% of the caps (default 2; keys 1-5 change it)")
 
 
 def run(args) -> int:
@@ -33,9 +39,15 @@ def run(args) -> int:
         raise InputError("--step", None, f"must be a number > 0 s, got {args.step:g}")
     if not 0 <= args.deadband < 1:
         raise InputError("--deadband", None, f"must be in [0, 1), got {args.deadband:g}")
+    if not 1 <= args.level <= 5:
+        raise InputError("--level", None, f"must be 1, 2, 3, 4 or 5, got {args.level}")
+    if args.enable_buttons and min(args.enable_buttons) < 0:
+        raise InputError("--enable-button", None, f"must be a button number >= 0, got {min(args.enable_buttons)}")
     robot = load_robot(args.robot)
+    from sim.cli.options import print_warnings
+    print_warnings(robot)
     session = DriveSession(robot, args.robot, step=args.step, record=args.record, align=args.align,
-                           deadband=args.deadband)
+                           deadband=args.deadband, enable_buttons=args.enable_buttons, level=args.level)
     try:
         code = session.run()
     except BaseException:

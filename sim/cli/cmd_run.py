@@ -10,6 +10,9 @@ def add_arguments(p):
     p.add_argument("scenario", help="scenario file (YAML)")
     p.add_argument("--csv", metavar="PATH", help="write the trace as CSV")
     p.add_argument("--every", type=int, default=1, metavar="N", help="keep every N-th row in the CSV")
+    p.add_argument("--json", action="store_true",
+                   help="print the summary as one JSON object (checks, measured values, peak slip, final pose, "
+                        "the engine's decisions) instead of text")
     p.add_argument("--baseline", metavar="PATH",
                    help="compare the trace with a recorded one (exit 1 when they diverge)")
     from sim.cli.options import add_tolerance_arguments
@@ -17,6 +20,8 @@ def add_arguments(p):
     p.add_argument("--window", action="store_true",
                    help="watch the run in a window in real time (h in the window lists the keys)")
     p.add_argument("--png", metavar="PATH", help="write the final frame as a PNG (no display needed)")
+    p.add_argument("--at", type=float, metavar="T",
+                   help="with --png: picture the run at time T s (the step nearest T) instead of its end")
     p.add_argument("--frames", metavar="DIR", help="write numbered PNG frames into DIR")
     p.add_argument("--fps", type=float, default=30.0, metavar="N",
                    help="frames per second of run time for --frames (default 30)")
@@ -33,21 +38,37 @@ def run(args) -> int:
         from sim.errors import require
         require("pygame", "--window/--png/--frames")
     scen = load_scenario(args.scenario)
+    from sim.cli.options import print_warnings
+    print_warnings(scen)
+    if args.at is not None and not args.png:
+        raise InputError("--at", None, "needs --png PATH (the picture of the run at that time)")
     if args.baseline:
         return _run_baseline(args, scen)
     if args.window or args.png or args.frames:
-        from sim.view.playback import view_run
+        from sim.view.playback import at_step, view_run
         res = view_run(scen, csv=args.csv, every=args.every, window=args.window, png=args.png,
-                       frames=args.frames, fps=args.fps)
+                       frames=args.frames, fps=args.fps, at=args.at)
     else:
         res = run_scenario(scen, csv=args.csv, every=args.every)
-    print(summary_text(res))
-    if args.png:
-        print(f"picture   {args.png}")
-    if args.frames:
-        print(f"frames    {args.frames}/ at {args.fps:g} per second of run time")
-    if args.csv:
-        print(f"trace     {args.csv} ({res.rows if args.every == 1 else 'every ' + str(args.every) + ' of ' + str(res.rows)} rows)")
+    if args.json:
+        from sim.runs.summary import summary_dict
+        d = summary_dict(res, scen.warnings)
+        if args.png:
+            d["picture"] = {"path": args.png, "t": at_step(scen, args.at) * scen.step if args.at is not None else None}
+        if args.frames:
+            d["frames"] = {"folder": args.frames, "fps": args.fps}
+        if args.csv:
+            d["trace"] = {"path": args.csv, "every": args.every}
+        _print_json(d)
+    else:
+        print(summary_text(res))
+        if args.png:
+            print(f"picture   {args.png}" + (f" (at t = {at_step(scen, args.at) * scen.step:g} s)"
+                                             if args.at is not None else ""))
+        if args.frames:
+            print(f"frames    {args.frames}/ at {args.fps:g} per second of run time")
+        if args.csv:
+            print(f"trace     {args.csv} ({res.rows if args.every == 1 else 'every ' + str(args.every) + ' of ' + str(res.rows)} rows)")
     if res.interrupted:
         return 130
     return 0 if res.passed else 1
@@ -62,10 +83,23 @@ def _run_baseline(args, scen) -> int:
     tol, rules = parse_tolerances(args.tol)
     res, rep, notes = run_against(scen, args.baseline, tol, rules, csv=args.csv,
                                   every=None if args.every == 1 else args.every)
-    print(summary_text(res))
-    print(rep.text("baseline", "run"))
-    for n in notes:
-        print(f"note      {n}")
+    if args.json:
+        from sim.runs.summary import summary_dict
+        d = summary_dict(res, scen.warnings)
+        d["baseline"] = {"path": args.baseline, "status": rep.status, "diverged": bool(rep.diverged),
+                         "first_divergence": rep.summary() if rep.diverged else None, "notes": list(notes)}
+        d["passed"] = d["passed"] and not rep.diverged
+        _print_json(d)
+    else:
+        print(summary_text(res))
+        print(rep.text("baseline", "run"))
+        for n in notes:
+            print(f"note      {n}")
     if res.interrupted:
         return 130
     return 0 if res.passed and not rep.diverged else 1
+
+
+def _print_json(d) -> None:
+    import json
+    print(json.dumps(d, indent=2, allow_nan=False))

@@ -9,9 +9,9 @@ from __future__ import annotations
 import difflib
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
-from sim.errors import InputError
+from sim.errors import InputError, InputWarning
 from sim.files.yamlread import Map, Seq, line_of
 
 _ANGLE = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(deg|rad)?\s*$")
@@ -19,11 +19,16 @@ _ANGLE = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(deg|rad
 
 @dataclass(frozen=True)
 class Where:
-    """Where a value sits: file name, key path like ``wheels[2].radius``, line."""
+    """Where a value sits: file name, key path like ``wheels[2].radius``, line.
+
+    ``notes`` (a list shared by every location of one file, or None) collects
+    plausibility warnings (:meth:`warn`); with None they are dropped.
+    """
 
     source: str
     path: str = ""
     line: int | None = None
+    notes: list | None = field(default=None, compare=False, repr=False)
 
     def at(self, container, key) -> "Where":
         """The location of ``container[key]``."""
@@ -31,11 +36,19 @@ class Where:
             path = f"{self.path}[{key}]"
         else:
             path = f"{self.path}.{key}" if self.path else str(key)
-        return Where(self.source, path, line_of(container, key, self.line))
+        return Where(self.source, path, line_of(container, key, self.line), self.notes)
 
     def error(self, message: str) -> InputError:
         label = f"{self.path}: " if self.path else ""
         return InputError(self.source, self.line, f"{label}{message}")
+
+    def warn(self, message: str) -> None:
+        """Note a plausibility warning here (kept in ``notes``, if any)."""
+        if self.notes is not None:
+            label = f"{self.path}: " if self.path else ""
+            w = InputWarning(self.source, self.line, f"{label}{message}")
+            if w not in self.notes:
+                self.notes.append(w)
 
 
 def suggest(word, choices) -> str:
@@ -111,8 +124,16 @@ def _u(unit):
     return f" ({unit})" if unit else ""
 
 
-def angle(value, where: Where) -> float:
-    """An angle in rad: a plain number (rad) or a string ``'30 deg'`` / ``'0.5 rad'``."""
+PLAIN_ANGLE_WARN = 2 * math.pi   # rad: a plain angle beyond this is probably degrees written without "deg"
+
+
+def angle(value, where: Where, rate: bool = False) -> float:
+    """An angle in rad: a plain number (rad) or a string ``'30 deg'`` / ``'0.5 rad'``.
+
+    A plain number (no unit) larger than 2 pi in size is taken as radians but
+    warned about (:meth:`Where.warn`): it is most likely degrees.  ``rate``:
+    the value is a turn rate (rad/s, ``'30 deg'`` meaning 30 deg/s).
+    """
     if isinstance(value, str):
         m = _ANGLE.match(value)
         if not m:
@@ -120,13 +141,24 @@ def angle(value, where: Where) -> float:
         v = float(m.group(1))
         if not math.isfinite(v):
             raise where.error(f"expected a finite angle, got '{value}'")
+        if m.group(2) is None:
+            _plain_angle(v, m.group(1), where, rate)
         return math.radians(v) if m.group(2) == "deg" else v
     if isinstance(value, float) and not math.isfinite(value):
         raise where.error(f"expected a finite angle, got {value}")
     try:
-        return number(value, where, unit="rad")
+        v = number(value, where, unit="rad")
     except InputError:
         raise where.error(f"expected an angle such as 0.5, '30 deg' or '0.5 rad', got {describe(value)}") from None
+    _plain_angle(v, value, where, rate)
+    return v
+
+
+def _plain_angle(v: float, written, where: Where, rate: bool = False) -> None:
+    if abs(v) > PLAIN_ANGLE_WARN:
+        u, du, turn = ("rad/s", "deg/s", "a full turn per second") if rate else ("rad", "deg", "a full turn")
+        where.warn(f"{written} is read as {v:g} {u} ({math.degrees(v):.6g} {du}), more than {turn}; "
+                   f"did you mean '{written} deg'? (plain numbers are radians)")
 
 
 def boolean(value, where: Where) -> bool:

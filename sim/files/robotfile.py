@@ -6,6 +6,9 @@ from __future__ import annotations
 
 import math
 import os
+from dataclasses import replace
+
+import numpy as np
 
 from sim.files import fields as F
 from sim.files.yamlread import load_file
@@ -29,9 +32,26 @@ def load_robot(path: str | os.PathLike) -> Robot:
     return robot_from_data(load_file(source), source)
 
 
+MAX_PLAUSIBLE_RADIUS = 1.0    # m: a larger wheel radius is warned about (metres, not millimetres?)
+MAX_PLAUSIBLE_MOUNT = 20.0    # m: a mount point farther from the body origin is warned about
+
+
 def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None) -> Robot:
-    """Validate parsed YAML (a mapping) into a :class:`Robot`."""
+    """Validate parsed YAML (a mapping) into a :class:`Robot`.
+
+    Plausibility warnings (see :func:`plausibility`) go to ``where.notes`` when
+    the caller gave one, and always to ``Robot.warnings``.
+    """
     where = where or F.Where(source, "", getattr(data, "line", 1) or 1)
+    if where.notes is None:
+        where = replace(where, notes=[])
+    first = len(where.notes)
+    robot = _robot(data, where, source)
+    plausibility(robot, data, where)
+    return replace(robot, warnings=tuple(where.notes[first:]))
+
+
+def _robot(data, where: F.Where, source: str) -> Robot:
     if data is None:
         raise where.error("empty robot description; expected a mapping with 'wheels'")
     data = F.expect_map(data, where, "a robot description (a mapping with name, footprint, wheels)")
@@ -59,6 +79,48 @@ def robot_from_data(data, source: str = "<inline>", where: F.Where | None = None
         wheels.append(w)
     return Robot(name=name, wheels=tuple(wheels), length=length, width=width, source=source,
                  footprint_x=fx, footprint_y=fy)
+
+
+def plausibility(robot: Robot, data, where: F.Where) -> None:
+    """Warn (``where.warn``) about values that are allowed but probably not meant.
+
+    Per wheel: a radius above :data:`MAX_PLAUSIBLE_RADIUS` or a mount point
+    beyond :data:`MAX_PLAUSIBLE_MOUNT` (values are metres).  A base driven by
+    Swedish wheels alone (mecanum, omni) whose forward map is singular or
+    worse conditioned than :data:`sim.theory.kinematics.COND_WARN`: its roller
+    pattern leaves a motion uncontrolled or nearly so (the weak motion is named).
+    Plain angles above 2 pi are warned about where they are read (:func:`fields.angle`).
+    """
+    from sim.theory.kinematics import COND_WARN, forward_conditioning
+
+    items = data["wheels"]
+    ww = where.at(data, "wheels")
+    for i, w in enumerate(robot.wheels):
+        at = lambda k: ww.at(items, i).at(items[i], k)
+        if w.radius > MAX_PLAUSIBLE_RADIUS:
+            at("radius").warn(f"radius {w.radius:g} m is larger than {MAX_PLAUSIBLE_RADIUS:g} m; values are metres "
+                              f"({w.radius:g} mm would be {w.radius / 1000:g})")
+        d = math.hypot(w.x, w.y)
+        if d > MAX_PLAUSIBLE_MOUNT:
+            at("x" if abs(w.x) >= abs(w.y) else "y").warn(
+                f"wheel '{w.name}' is mounted {d:g} m from the body origin, beyond {MAX_PLAUSIBLE_MOUNT:g} m; "
+                "values are metres")
+    a = robot.arrays
+    driven = a.driven
+    if np.any(driven) and not np.any(a.is_("fixed", "steered")) and np.all(a.is_("swedish")[driven]):
+        c = forward_conditioning(robot)
+        if c.number > COND_WARN:
+            vx, vy, om = c.weak
+            motion = f"vx {vx:.3f} m/s, vy {vy:.3f} m/s, omega {om:.3f} rad/s"
+            scale = f"(omega weighted by the base size, {robot.size:.3g} m)"
+            if math.isinf(c.number):
+                ww.warn(f"the roller pattern leaves a motion uncontrolled: no wheel spin produces or resists "
+                        f"{motion}; the forward map's condition number is infinite {scale}; check the roller "
+                        "signs (README: rollers of a mecanum base)")
+            else:
+                ww.warn(f"the roller pattern leaves a motion nearly uncontrolled: the forward map's condition "
+                        f"number is {c.number:.3g} (above {COND_WARN:g}) {scale}, its weak motion {motion}; "
+                        "check the roller angles and signs (README: rollers of a mecanum base)")
 
 
 def _wheel(item, where: F.Where) -> Wheel:

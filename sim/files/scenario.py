@@ -72,6 +72,7 @@ class Scenario:
     odometry: object = None
     description: str = ""
     skid: bool = True
+    warnings: tuple = ()
 
     @property
     def steps(self) -> int:
@@ -92,7 +93,9 @@ def load_scenario(path: str | os.PathLike) -> Scenario:
 
 
 def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> Scenario:
-    where = F.Where(source, "", getattr(data, "line", 1) or 1)
+    """Validate parsed YAML into a :class:`Scenario`.  ``Scenario.warnings``: the
+    plausibility warnings of its robot and of the scenario itself (``file:line: warning: ...``)."""
+    where = F.Where(source, "", getattr(data, "line", 1) or 1, [])
     if data is None:
         raise where.error("empty scenario; expected a mapping with robot, step, duration, script")
     data = F.expect_map(data, where, "a scenario mapping")
@@ -145,8 +148,9 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     desc = data.get("description", "")
     if not isinstance(desc, str):
         raise at("description").error("expected text")
+    warnings = tuple(dict.fromkeys(robot.warnings + tuple(where.notes)))
     return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
-                    source, robot_hash, scen_hash, odometry, desc, skid)
+                    source, robot_hash, scen_hash, odometry, desc, skid, warnings)
 
 
 def _start_steer(robot, value, where):
@@ -217,7 +221,7 @@ def _twist(value, where):
     F.check_keys(m, ("vx", "vy", "omega"), where)
     return (F.number(m.get("vx", 0.0), where.at(m, "vx"), unit="m/s"),
             F.number(m.get("vy", 0.0), where.at(m, "vy"), unit="m/s"),
-            F.angle(m.get("omega", 0.0), where.at(m, "omega")))
+            F.angle(m.get("omega", 0.0), where.at(m, "omega"), rate=True))
 
 
 def _wheels(value, where, robot):

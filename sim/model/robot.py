@@ -95,7 +95,9 @@ class Robot:
     """A wheeled base: a name, a footprint for drawing, and its wheels in file order.
 
     The footprint is a ``length`` x ``width`` rectangle (m) centred at body
-    point (``footprint_x``, ``footprint_y``), for drawing only.
+    point (``footprint_x``, ``footprint_y``), for drawing only.  ``warnings``:
+    plausibility warnings from reading its file (objects whose ``str`` is
+    ``file:line: warning: message``).
     """
 
     name: str
@@ -105,6 +107,7 @@ class Robot:
     source: str = "<inline>"
     footprint_x: float = 0.0
     footprint_y: float = 0.0
+    warnings: tuple = field(default=(), compare=False, repr=False)
 
     def wheel(self, name: str) -> Wheel:
         for w in self.wheels:

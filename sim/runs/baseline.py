@@ -35,6 +35,11 @@ def baseline_every(scen) -> int:
     return max(1, math.ceil(scen.steps / MAX_ROWS))
 
 
+def missing_message() -> str:
+    """What to say when a baseline file is not there."""
+    return "baseline not found (record one with 'trundle batch --update' or 'trundle run --csv')"
+
+
 def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every=None):
     """Run ``scen`` and compare its trace with ``baseline``.
 
@@ -45,8 +50,7 @@ def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every
     """
     baseline = os.fspath(baseline)
     if not os.path.isfile(baseline):
-        raise InputError(baseline, None, "baseline not found (record one with 'trundle batch --update' "
-                                         "or 'trundle run --csv')")
+        raise InputError(baseline, None, missing_message())
     meta = read_meta(baseline)
     if every is None:
         every = meta.get("every", 1) if meta else 1

@@ -132,11 +132,12 @@ def run_one(path, baselines_dir, update, rel=None, tol=DEFAULT_TOLERANCE, rules=
     Keys: ``scenario`` (path), ``result`` (one of :data:`RESULTS`), ``wall``
     (s), ``peak_slip`` (m/s or None), ``first_divergence`` (short text),
     ``baseline`` (path or None), ``change`` (``new`` | ``changed`` |
-    ``metadata`` | ``unchanged`` | None), ``details`` (list of lines explaining a non-pass).
+    ``metadata`` | ``unchanged`` | None), ``details`` (list of lines explaining a non-pass),
+    ``warnings`` (plausibility warnings of the scenario and its robot, ``file:line: warning: ...``).
     """
     t0 = time.perf_counter()
     out = {"scenario": os.fspath(path), "result": "crashed", "wall": 0.0, "peak_slip": None,
-           "first_divergence": "", "baseline": None, "change": None, "details": []}
+           "first_divergence": "", "baseline": None, "change": None, "details": [], "warnings": []}
     try:
         _run_one(out, os.fspath(path), baselines_dir, update, rel, tol, list(rules))
     except InputError as exc:
@@ -154,11 +155,13 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
     from sim.files.scenario import load_scenario
 
     scen = load_scenario(path)
+    out["warnings"] = [str(w) for w in scen.warnings]
     rep = None
+    missing = None
     if baselines_dir is None:
         res = run_scenario(scen)
     else:
-        from sim.runs.baseline import record, run_against
+        from sim.runs.baseline import missing_message, record, run_against
         bpath = baseline_path(baselines_dir, rel or os.path.basename(path))
         out["baseline"] = bpath
         if update:
@@ -166,6 +169,10 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
             out["change"] = change
             if old is not None:
                 out["first_divergence"] = "diverged " + old.summary() if old.diverged else old.status
+        elif not os.path.isfile(bpath):
+            # still run it: a failing check is reported beside the missing baseline
+            res = run_scenario(scen)
+            missing = f"{bpath}: {missing_message()}"
         else:
             res, rep, notes = run_against(scen, bpath, tol, rules)
     if res.interrupted:
@@ -178,10 +185,15 @@ def _run_one(out, path, baselines_dir, update, rel, tol, rules):
     if failed:
         out["result"] = "check failed"
         out["details"] += failed
+    elif missing:
+        out["result"] = "input error"
     elif diverged:
         out["result"] = "diverged"
     else:
         out["result"] = "pass"
+    if missing:
+        out["first_divergence"] = "no baseline"
+        out["details"].append(missing)
     if diverged:
         out["details"] += rep.text("baseline", "run").splitlines() + [f"note {n}" for n in notes]
 
@@ -243,7 +255,7 @@ def worker_context():
 
 def died(path, why) -> dict:
     return {"scenario": path, "result": "crashed", "wall": 0.0, "peak_slip": None,
-            "first_divergence": "", "baseline": None, "change": None, "details": [why]}
+            "first_divergence": "", "baseline": None, "change": None, "details": [why], "warnings": []}
 
 
 def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLERANCE, rules=(),

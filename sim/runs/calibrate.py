@@ -301,6 +301,26 @@ def analyse(runs: SquareRuns, b: float) -> Umbmark:
                    fit[0], fit[1], expect["alpha"], expect["beta"], scatter, allowance, capped)
 
 
+def corrected_uncertainty(u: Umbmark, robot: Robot, dd: DiffDrive) -> dict:
+    """Standard errors (m) of the corrected values, ``{(wheel, "radius" | "y"): sigma}``.
+
+    alpha and beta are each the mean of two estimates whose difference has the
+    standard error ``scatter`` (see :func:`analyse`), so each has about
+    ``scatter / 2``.  Propagated to first order (small errors): ``Eb = 90 deg /
+    (90 deg - alpha)`` moves each wheel's y by ``(b/2) dEb`` with ``dEb = Eb^2
+    dalpha / (pi/2)``; ``Ed`` is about ``1 + b beta / L`` (legs of radius
+    ``R = L / beta``), and each radius moves by ``r dEd / 2``.
+    """
+    s = 0.5 * max(u.scatter, 1e-12)
+    b = dd.b
+    out = {}
+    for name in (dd.left, dd.right):
+        r = robot.wheel(name).radius
+        out[(name, "radius")] = r * (b * u.Eb / u.side) * s / 2
+        out[(name, "y")] = (b / 2) * u.Eb ** 2 * s / (math.pi / 2)
+    return out
+
+
 def corrected_robot(robot: Robot, dd: DiffDrive, Ed: float, Eb: float) -> Robot:
     """``robot`` (the believed geometry) with the drive radii scaled by c_L, c_R and
     the wheelbase by Eb about the axle midpoint."""
@@ -505,17 +525,3 @@ def robot_yaml(robot: Robot, comments=()) -> str:
         if w.type == "swedish":
             out.append(f"    roller: {_ang(w.roller)}")
     return "\n".join(out) + "\n"
-
-
-def write_text(path, text: str) -> None:
-    """Write ``text`` to ``path`` through ``path.part`` (no partial file on failure)."""
-    path = os.fspath(path)
-    part = path + ".part"
-    try:
-        with open(part, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        os.replace(part, path)
-    except BaseException:
-        if os.path.exists(part):
-            os.remove(part)
-        raise

@@ -181,7 +181,10 @@ class FitResult:
     """robot : the fitted geometry.  params : [(wheel, key)].  start, values : (P,) m.
     undetermined : params the runs do not fix (kept at their start).  rms_start,
     rms : RMS residual per window before/after (m, weighted).  motion : RMS of
-    the true window displacements (same weighting).  iterations : Gauss-Newton steps."""
+    the true window displacements (same weighting).  iterations : Gauss-Newton steps.
+    sigma : (P,) m, standard error of each value from the final Jacobian and the
+    residual (least-squares covariance ``s^2 (J^T J)^+`` over the directions the
+    runs fix, common practice; for an undetermined value, of its fixed part)."""
 
     robot: Robot
     params: tuple
@@ -192,6 +195,7 @@ class FitResult:
     rms: float
     motion: float
     iterations: int
+    sigma: np.ndarray | None = None
 
 
 def fit_geometry(robot: Robot, wheels, records) -> FitResult:
@@ -250,6 +254,10 @@ def fit_geometry(robot: Robot, wheels, records) -> FitResult:
             break
     _, s, Vt = np.linalg.svd(jacobian(p), full_matrices=False)
     null = Vt[~(s > SVD_TOL * s[0])] if s[0] > 0 else Vt
+    fixed = s > SVD_TOL * s[0] if s[0] > 0 else np.zeros(len(s), bool)
+    dof = max(len(r) - int(np.sum(fixed)), 1)
+    cov = (Vt[fixed].T / s[fixed] ** 2) @ Vt[fixed] * float(r @ r) / dof
+    sigma = np.sqrt(np.maximum(np.diag(cov), 0.0))
     undetermined = tuple(f"{w}.{k}" for (w, k), v in zip(params, np.linalg.norm(null, axis=0)) if v > 0.1) \
         if len(null) else ()
     rms = float(np.sqrt(np.mean(r ** 2)))
@@ -258,4 +266,4 @@ def fit_geometry(robot: Robot, wheels, records) -> FitResult:
                          f"miss the recorded motion by {rms:.3g} (RMS, m) against a motion of {motion:.3g}; check "
                          "the wheel columns, their units (counts or rad/s) and the pose columns (world frame, rad)")
     return FitResult(with_params(robot, params, p), params, p0, p, undetermined,
-                     float(np.sqrt(np.mean(r0 ** 2))), rms, motion, it)
+                     float(np.sqrt(np.mean(r0 ** 2))), rms, motion, it, sigma)

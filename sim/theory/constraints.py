@@ -111,10 +111,11 @@ class Stack:
     rolling rows of driven wheels of fixed angle (fixed, Swedish); ``J1s``
     (n_s, 3) rolling rows of driven wheels of variable angle (steered,
     castor); ``C1f`` (m_f, 3) no-sliding rows of fixed wheels; ``C1s``
-    (m_s, 3) of steered wheels; ``C1c`` (m_c, 3) of castors with ``C2`` the
-    (m_c,) trail lengths multiplying their steering rates; ``J2`` (n_f+n_s,)
-    ``r cos(gamma)`` of the driven wheels, so that
-    ``J1 xi = diag(J2) phidot``.  ``*_names`` hold the wheel names per block.
+    (m_s, 3) of steered wheels; ``C1c`` (m_c, 3) of castors with ``C2`` (m_c,)
+    m, the coefficients of their steering rates, so that
+    ``C1c xi + diag(C2) hdot = 0`` (``C2 = -trail``, the sign this equation needs
+    with the rows above); ``J2`` (n_f+n_s,) ``r cos(gamma)`` of the driven wheels,
+    so that ``J1 xi = diag(J2) phidot``.  ``*_names`` hold the wheel names per block.
     """
 
     J1f: np.ndarray
@@ -172,7 +173,7 @@ def stack(robot: Robot, heading=None) -> Stack:
     C1c, cc = pick(slide, a.is_("castor"))
     r_cos = a.radius * np.cos(a.roller)
     J2 = np.concatenate([r_cos[fixed_angle], r_cos[var_angle]])
-    return Stack(J1f, J1s, C1f, C1s, C1c, a.trail[a.is_("castor")], J2, nf, ns, cf, cs, cc)
+    return Stack(J1f, J1s, C1f, C1s, C1c, -a.trail[a.is_("castor")], J2, nf, ns, cf, cs, cc)
 
 
 @physics

@@ -302,6 +302,50 @@ def forward_matrix(robot: Robot, heading) -> tuple:
     return Pm[:, : len(idx)] * (a.radius[idx] * np.cos(a.roller[idx]))[None, :], idx
 
 
+COND_WARN = 10.0   # a forward map worse conditioned than this leaves a motion nearly uncontrolled
+
+
+@dataclass(frozen=True)
+class Conditioning:
+    """How well the driven wheels determine the body motion (:func:`forward_conditioning`).
+
+    number : condition number of the forward map (largest over smallest singular
+    value, twists measured as ``(vx, vy, L omega)``); ``inf`` when a motion is
+    left uncontrolled (rank < 3).
+    singular : (3,) singular values, largest first (0 for missing ones), in
+    (m/s) per (rad/s) of spin.
+    weak : (3,) the weak motion ``(vx, vy, omega)`` (m/s, m/s, rad/s), a unit
+    twist in that metric: the motion the wheels determine least.  With rank 3
+    it is the direction of the largest singular value (the forward map
+    amplifies spin errors most along it: the wheels hardly turn when the base
+    moves that way); with rank < 3 the direction of a zero singular value (no
+    spin produces or resists it).  Sign chosen so its largest part is positive.
+    """
+
+    number: float
+    singular: np.ndarray
+    weak: np.ndarray
+
+
+def forward_conditioning(robot: Robot, heading=None) -> Conditioning:
+    """Singular value decomposition (numpy) of the forward map at ``heading`` (n,) rad
+    (default: the file's headings); see :class:`Conditioning`."""
+    h = robot.arrays.heading if heading is None else np.asarray(heading, dtype=float)
+    F, _ = forward_matrix(robot, h)
+    S = twist_scale(robot)
+    U, s, _ = np.linalg.svd(F / S[:, None] if F.size else np.zeros((3, 1)))
+    sv = np.zeros(3)
+    sv[: min(3, len(s))] = s[:3]
+    smallest = sv[2]
+    full = smallest > RANK_TOL * max(sv[0], 1e-300)
+    number = float(sv[0] / smallest) if full else float("inf")
+    u = U[:, 0] if full else U[:, 2]
+    u = np.where(np.abs(u) < 1e-12, 0.0, u)
+    if u[int(np.argmax(np.abs(u)))] < 0:
+        u = -u
+    return Conditioning(number, sv, u * S + 0.0)
+
+
 @lru_cache(maxsize=32)
 def admissible_basis(robot: Robot) -> np.ndarray:
     """Orthonormal basis (scaled metric), shape (3, k), of twists the fixed wheels allow (read-only)."""

@@ -84,12 +84,20 @@ def provenance_notes(meta: dict | None, scen, every: int) -> list:
     if meta is None:
         return ["the baseline has no metadata (no .meta.json beside it); cannot say what produced it"]
     notes = []
-    if meta.get("scenario_hash") != scen.scenario_hash:
+    name = os.path.basename(scen.source)
+    other_scenario = meta.get("scenario") not in (None, name)
+    if other_scenario:
+        notes.append(f"likely cause: the baseline was recorded from another scenario, "
+                     f"'{meta.get('scenario')}' (this run is '{name}')")
+    elif meta.get("scenario_hash") != scen.scenario_hash:
         notes.append(f"likely cause: the scenario file changed since the baseline was recorded "
                      f"(hash {meta.get('scenario_hash')} then, {scen.scenario_hash} now)")
-    if meta.get("robot_hash") != scen.robot_hash:
-        notes.append(f"likely cause: the robot changed since the baseline was recorded "
-                     f"(hash {meta.get('robot_hash')} then, {scen.robot_hash} now)")
+    if meta.get("robot") not in (None, scen.robot.name):
+        notes.append(f"{'' if other_scenario else 'likely cause: '}the baseline was recorded with another robot, "
+                     f"'{meta.get('robot')}' (this run drives '{scen.robot.name}')")
+    elif meta.get("robot_hash") != scen.robot_hash:
+        notes.append(f"{'' if other_scenario else 'likely cause: '}the robot changed since the baseline "
+                     f"was recorded (hash {meta.get('robot_hash')} then, {scen.robot_hash} now)")
     if meta.get("step") != scen.step:
         notes.append(f"the baseline was recorded with step {meta.get('step')} s, the run uses {scen.step:g} s")
     if meta.get("every", 1) != every:

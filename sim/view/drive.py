@@ -1,11 +1,14 @@
 """A hand-driving session: window input -> teleop request -> engine -> picture (and recording).
 
-Each frame: read the window's events (keys via :func:`sim.teleop.press`,
-gamepad via :func:`sim.teleop.sticks`), command the body twist
-(:func:`sim.teleop.body_twist`) through :meth:`sim.engine.Simulator.command_twist`
+Each frame: read the window's events (keys down and up via
+:func:`sim.view.teleop.key_down` / :func:`~sim.view.teleop.key_up`, the gamepad via
+:func:`~sim.view.teleop.pad`), command the body twist
+(:func:`~sim.view.teleop.body_twist`) through :meth:`sim.engine.simulator.Simulator.command_twist`
 (so the inverse kinematics and the base's limits apply), advance the engine
-by as many fixed steps as wall-clock time has passed, record, draw.  No
-pygame here: the window and drawing are :mod:`sim.render`.
+by as many fixed steps as wall-clock time has passed, record, draw.  Hold to
+drive: with nothing held the request is zero and the base ramps to a stop; a
+window that loses the keyboard lets go of every key.  No pygame here: the
+window and drawing are :mod:`sim.view.render`.
 """
 from __future__ import annotations
 
@@ -13,12 +16,16 @@ import os
 import time
 
 from sim.engine.simulator import Simulator
-from sim.view.teleop import TeleopConfig, TeleopState, body_twist, press, sticks
+from sim.view.teleop import (DRIVE_KEYS, LEVELS, TeleopConfig, TeleopState, body_twist, keep_held, key_down,
+                             key_up, pad, release_all, request)
 
 MAX_CATCH_UP = 0.25   # s of run time advanced at most per frame (a slow frame does not jump)
-HELP = (("up w  down s", "forward speed +/- 0.05 m/s"), ("left a  right d", "turn rate +/- 0.1 rad/s"),
-        ("q  e", "sideways speed +/- 0.05 m/s"), ("space", "stop"), ("b", "body / world frame"),
-        ("p", "steering policy"), ("f", "follow the base"), ("h", "this help"), ("esc", "quit"),
+FOLLOW_KEY, HELP_KEY = "tab", "f1"
+HELP = (("hold f / v", "drive forward / backward"), ("hold d / g", "turn left / right"),
+        ("hold s / h", "slide left / right (bases that can)"), ("let go", "the base ramps to a stop"),
+        ("1 2 3 4 5", "speed level: 10 25 50 75 100 % of the caps"),
+        ("pad", "sticks drive while a shoulder button is held"), ("b", "body / world frame"),
+        ("p", "steering policy"), ("tab", "follow the base"), ("f1", "this help"), ("esc", "quit"),
         ("wheel", "zoom; drag: pan"))
 
 
@@ -38,17 +45,20 @@ class DriveSession:
     align : starting steering policy.
     size : (width, height) px of the window.
     hidden : open the window hidden (tests, with the dummy video driver).
-    joystick : look for a gamepad.
+    joystick : look for a gamepad.  deadband : its sticks' dead band (0..1).
+    enable_buttons : gamepad buttons, any one of which enables the sticks while held.
+    level : starting speed level, 1..5.
     """
 
     def __init__(self, robot, robot_path=None, step=0.01, record=None, align="wait", size=None,
-                 hidden=False, joystick=True, deadband=0.15):
+                 hidden=False, joystick=True, deadband=0.15, enable_buttons=None, level=2):
         from sim.view import render
+        from sim.view.teleop import ENABLE_BUTTONS
 
         self.robot = robot
         self.sim = Simulator(robot, step, align=align)
-        self.cfg = TeleopConfig.for_robot(robot, deadband)
-        self.state = TeleopState(align=align)
+        self.cfg = TeleopConfig.for_robot(robot, deadband, enable_buttons or ENABLE_BUTTONS)
+        self.state = TeleopState(align=align, level=level)
         self.recorder = None
         if record:
             from sim.view.recording import Recorder
@@ -59,8 +69,8 @@ class DriveSession:
         self.renderer.fit((0.0, 0.0, 0.0, 0.0))
         self.renderer.view.zoom(0.5)
         try:
-            self.window = render.Window(size, f"trundle drive  {robot.name}  (h: keys)", hidden=hidden,
-                                        joystick=joystick, key_repeat=(350, 70))
+            self.window = render.Window(size, f"trundle drive  {robot.name}  (F1: keys)", hidden=hidden,
+                                        joystick=joystick)
         except BaseException:
             if self.recorder:
                 self.recorder.abort()
@@ -75,29 +85,36 @@ class DriveSession:
         for ev in self.window.events():
             kind = ev[0]
             if kind == "quit":
-                self.state = press(self.state, "escape", self.cfg)
+                self.state = key_down(self.state, "escape")
             elif kind == "key":
                 k = ev[1]
-                if k == "f":
+                if k == FOLLOW_KEY:
                     self.renderer.follow = not self.renderer.follow
-                elif k == "h":
+                elif k == HELP_KEY:
                     self.help = not self.help
                 else:
-                    self.state = press(self.state, k, self.cfg)
+                    self.state = key_down(self.state, k)
+            elif kind == "keyup":
+                self.state = key_up(self.state, ev[1])
+            elif kind == "unfocus":
+                self.state = release_all(self.state)
             elif kind == "zoom":
                 self.renderer.view.zoom(ev[1], ev[2])
             elif kind == "pan":
                 self.renderer.follow = False
                 self.renderer.view.pan(ev[1], ev[2])
+        down = self.window.keys_down(DRIVE_KEYS)
+        if down is not None:
+            self.state = keep_held(self.state, down)
         axes = self.window.sticks()
         if axes is not None:
-            self.state = sticks(self.state, axes, self.cfg)
+            self.state = pad(self.state, axes, self.window.buttons() or [], self.cfg)
 
     def advance(self, nsteps: int) -> None:
         """Run ``nsteps`` engine steps under the current request (recording each row)."""
         for _ in range(int(nsteps)):
             self.sim.align = self.state.align
-            self.sim.command_twist(body_twist(self.state, float(self.sim.pose[2])))
+            self.sim.command_twist(body_twist(self.state, float(self.sim.pose[2]), self.cfg))
             row = self.sim.step()
             self.renderer.observe(row)
             if self.recorder:
@@ -113,9 +130,15 @@ class DriveSession:
         self.renderer.align = self.state.align
         st = self.state
         u = "world" if st.frame == "world" else "body"
+        vx, vy, w = request(st, self.cfg)
+        f = LEVELS[st.level]
+        source = {"keys": "keys held", "pad": "pad, enabled", "none": "nothing held: stopping"}[st.source]
         lines = [("drive", f"request in the {u} frame"),
-                 ("", f"vx {_fmt(st.vx)}  vy {_fmt(st.vy)} m/s"),
-                 ("", f"omega {_fmt(st.omega)} rad/s   ({st.source})")]
+                 ("", f"vx {_fmt(vx)}  vy {_fmt(vy)} m/s"),
+                 ("", f"omega {_fmt(w)} rad/s   ({source})"),
+                 ("level", f"{st.level}: {100 * f:.0f} % = {_fmt(f * self.cfg.max_speed, 2)} m/s, "
+                           f"{_fmt(f * self.cfg.max_turn, 2)} rad/s"),
+                 ("keys", "hold f v d g s h; 1-5; F1 help")]
         if self.recorder:
             lines.append(("record", os.path.basename(self.recorder.path)))
         self.window.show(self.renderer.draw(self.row, lines), HELP if self.help else None)

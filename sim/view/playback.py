@@ -39,18 +39,31 @@ def _check_out_dir(path, what):
         raise InputError(what, None, f"directory '{os.path.dirname(path) or '.'}' does not exist")
 
 
+def at_step(scen, at: float) -> int:
+    """Row index of the step nearest ``at`` s; InputError unless 0 <= at <= the duration."""
+    if not (at >= 0 and at <= scen.duration + 1e-9 * scen.step):
+        raise InputError("--at", None, f"must be a time from 0 to the end of the run ({scen.duration:g} s), "
+                         f"got {at:g}")
+    return min(int(round(at / scen.step)), scen.steps - 1)
+
+
 def view_run(scen, csv=None, every=1, window=False, png=None, frames=None, fps=30.0,
-             size=None, hidden=False):
+             size=None, hidden=False, at=None):
     """Run ``scen`` and show or picture it; returns the :class:`~sim.runner.RunResult`.
 
     window : bool, play in a window in real time (blocks until the user quits).
-    png : path or None, write the final frame there.
+    png : path or None, write the final frame there (or the frame at ``at``).
     frames : directory or None, write ``frame-000000.png`` ... every ``1/fps`` s of run time.
     size : (width, height) px or None for :data:`sim.render.DEFAULT_SIZE`.
     hidden : open the window hidden (tests).
+    at : s or None: the PNG shows the step nearest this time (trail, peak slip up to
+    then; the view still fitted to the whole path), not the final one.
     """
     from sim.view import render
 
+    if at is not None and not png:
+        raise InputError("--at", None, "needs --png PATH (the picture of the run at that time)")
+    k_at = at_step(scen, at) if at is not None else None
     if png:
         _check_out_dir(png, "--png")
     if frames:
@@ -80,7 +93,7 @@ def view_run(scen, csv=None, every=1, window=False, png=None, frames=None, fps=3
             rd.reset()
         if window:
             win = render.Window(size, f"trundle  {name}", hidden=hidden, joystick=False)
-        player = _Player(rd, win, frames, fps, scen.step, full)
+        player = _Player(rd, win, frames, fps, scen.step, full, k_at)
         while True:
             try:
                 res = run_scenario(scen, csv=csv, every=every, on_row=player.on_row)
@@ -91,7 +104,12 @@ def view_run(scen, csv=None, every=1, window=False, png=None, frames=None, fps=3
             if full is None:
                 full = player.full = rd.bounds
                 rd.fit(full)
-            if png and player.last is not None:
+            if png and player.at_row is not None:          # --at: the state then, drawn in the final view
+                end = rd.snapshot()
+                rd.restore(player.at_state)
+                render.save_png(rd.draw(player.at_row), png)
+                rd.restore(end)
+            elif png and player.last is not None:
                 render.save_png(rd.draw(player.last), png)
             if win is None or res.interrupted:
                 return res
@@ -110,9 +128,10 @@ def view_run(scen, csv=None, every=1, window=False, png=None, frames=None, fps=3
 class _Player:
     """The row callback: trail, frames, and (with a window) real-time pacing and keys."""
 
-    def __init__(self, rd, win, frames, fps, step, full):
+    def __init__(self, rd, win, frames, fps, step, full, k_at=None):
         self.rd, self.win, self.frames, self.fps, self.dt = rd, win, frames, fps, step
         self.full = full            # bounds (m) of the whole path, for "fit the view"
+        self.k_at = k_at            # row index whose picture --png --at wants
         self.speed = 1.0
         self.paused = False
         self.single = False
@@ -121,6 +140,8 @@ class _Player:
 
     def restart(self):
         self.last = None
+        self.rows = 0
+        self.at_row = self.at_state = None
         self.frame_no = 0
         self.anchor = None          # (wall time, run time) of the pacing reference
         self.drawn_at = -1.0        # wall time of the last window frame
@@ -131,6 +152,9 @@ class _Player:
 
         self.rd.observe(row)
         self.last = row
+        if self.rows == self.k_at:
+            self.at_row, self.at_state = row, self.rd.snapshot()
+        self.rows += 1
         if self.frames:
             while row.t >= self.frame_no / self.fps - 1e-9 * self.dt:
                 path = os.path.join(self.frames, FRAME_NAME.format(self.frame_no))
@@ -161,12 +185,14 @@ class _Player:
             time.sleep(wait)
 
     def linger(self, res):
-        """After the run: keep showing the last frame until the user quits or restarts."""
+        """After the run: keep showing the last frame, with each check's PASS / FAIL, until
+        the user quits or restarts."""
         self.paused = False
+        checks = [(c.passed, c.text) for c in res.checks]
         while True:
             if self._keys(finished=True):
                 return
-            self._show(self.last, "finished")
+            self._show(self.last, "finished", checks)
             time.sleep(0.03)
 
     # -- window ---------------------------------------------------------------
@@ -174,9 +200,13 @@ class _Player:
         speed = f"x{self.speed:g}"
         self.win.set_title(f"trundle  {self.rd.title}  {state}  {speed}  (h: help)")
 
-    def _show(self, row, state=None):
-        self._title(state or ("paused" if self.paused else "playing"))
-        self.win.show(self.rd.draw(row), HELP if self.help else None)
+    def _show(self, row, state=None, checks=()):
+        """Draw ``row`` in the window with the state, speed (and checks) in the picture and the title."""
+        from sim.view.render import Status
+
+        state = state or ("paused" if self.paused else "playing")
+        self._title(state)
+        self.win.show(self.rd.draw(row, status=Status(state, self.speed, checks)), HELP if self.help else None)
 
     def _keys(self, finished=False):
         """Handle input; True when the user quits after the run has finished."""

@@ -7,12 +7,15 @@ with file and line) and keeps memory flat: long traces are thinned to at most
 ``max_rows`` evenly spaced rows while the slip peak is taken from every row.
 
 The figure (:func:`figure`): the x-y path with heading ticks, start and end
-marks and the ICR points; the body twist against time (commanded dashed, the
-m/s and rad/s axes sharing their zero line); per-wheel spin and steer, command
-(dashed) against actual; total slip against time with its peak marked.  A
-second trace is overlaid in dotted lines; its wheels are drawn only where the
-first trace has a wheel of the same name (:func:`unshown_wheels` lists the rest).
-Legends sit in a strip along the top of each panel, above the data.
+marks, the ICR points and (traces with odometry) the estimate beside the truth,
+with its error against time; the body velocity and turn rate in panels of
+their own (commanded dashed); per-wheel spin and steer, command (dashed)
+against actual, identical curves drawn once and named together; total slip
+against time with its peak marked; an empty panel says "none".  A second trace
+is overlaid in dotted lines and named in the legends and slip labels; its
+wheels are drawn only where the first trace has a wheel of the same name
+(:func:`unshown_wheels` lists the rest).  Legends sit in a strip along the top
+of each panel, above the data.
 """
 from __future__ import annotations
 
@@ -28,6 +31,9 @@ REQUIRED = ("t", "x", "y", "theta")
 # Okabe-Ito colours (as in sim.render), cycled for wheels
 COLOURS = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#56B4E9", "#D55E00", "#F0E442", "#000000")
 PATH, COMPARE, ICR, PEAK = "#0072B2", "#E69F00", "#CC79A7", "#D55E00"
+ODOM = "#009E73"                                                  # bluish green: the odometry estimate
+TWIST_COLOURS = {"vx": "#0072B2", "vy": "#E69F00", "omega": "#009E73"}
+ODOMETRY = ("odom_x", "odom_y", "odom_theta")
 
 
 @dataclass
@@ -141,24 +147,39 @@ def unshown_wheels(traces) -> list:
     return [w for w in traces[1].wheels if w not in traces[0].wheels]
 
 
-def zero_aligned_limits(spans, floor: float = 0.05, margin: float = 0.05) -> list:
-    """y limits, one per axis, that put y = 0 at the same height on every axis (twin axes).
+def identical_groups(names, arrays, rel: float = 1e-9) -> list:
+    """Group ``names`` whose curves are the same (each curve a tuple of arrays; NaN equals NaN).
 
-    spans : list of (lo, hi), each axis' data range with lo <= 0 <= hi, in that axis' units.
-    floor : every axis spans at least ``2 floor`` (a still twist does not blow rounding noise
-    up to full height).  margin : fraction of the span added below and above.
-    Returns a list of (ymin, ymax).
+    Two curves are the same when every value agrees within ``rel`` times the largest
+    magnitude of either (at least 1e-12).  Returns lists of names in order of first
+    appearance; drawn as one line with one legend entry, identical curves stay
+    distinguishable instead of hiding each other.
     """
-    fb = fa = 0.0
-    for lo, hi in spans:
-        s = max(hi - lo, 2 * floor)
-        fb, fa = max(fb, -lo / s), max(fa, hi / s)
-    p = fb / (fb + fa) if fb + fa > 1e-9 else 0.5         # fraction of the height below zero
-    out = []
-    for lo, hi in spans:
-        h = max(-lo / p if p > 0 else 0.0, hi / (1 - p) if p < 1 else 0.0, 2 * floor)
-        out.append((-p * h - margin * h, (1 - p) * h + margin * h))
-    return out
+    groups = []
+    for name, arr in zip(names, arrays):
+        for g in groups:
+            ref = g[1]
+            if len(ref) == len(arr) and all(_same(a, b, rel) for a, b in zip(ref, arr)):
+                g[0].append(name)
+                break
+        else:
+            groups.append(([name], arr))
+    return [g[0] for g in groups]
+
+
+def _same(a, b, rel):
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    if a.shape != b.shape or not np.array_equal(np.isnan(a), np.isnan(b)):
+        return False
+    ok = np.isfinite(a)
+    if not np.any(ok):
+        return True
+    tol = max(rel * max(float(np.max(np.abs(a[ok]))), float(np.max(np.abs(b[ok])))), 1e-12)
+    return bool(np.all(np.abs(a[ok] - b[ok]) <= tol))
+
+
+def _group_label(names) -> str:
+    return names[0] if len(names) == 1 else " = ".join(names) + " (identical)"
 
 
 def _span(arrays):
@@ -168,6 +189,16 @@ def _span(arrays):
     if not vals:
         return 0.0, 0.0
     return min(0.0, min(float(v.min()) for v in vals)), max(0.0, max(float(v.max()) for v in vals))
+
+
+def _zero_limits(ax, arrays, floor):
+    """y limits showing ``arrays`` and 0, at least ``2 floor`` high (a still signal is not blown up)."""
+    lo, hi = _span(arrays)
+    if hi - lo < 2 * floor:
+        mid = 0.5 * (lo + hi)
+        lo, hi = min(lo, mid - floor), max(hi, mid + floor)
+    pad = 0.06 * (hi - lo)
+    ax.set_ylim(lo - pad, hi + pad)
 
 
 def _legend_on_top(ax, handles, labels, ncol, twins=(), **kw):
@@ -204,35 +235,64 @@ def _fit_path_view(ax, lim, top_px):
     ax.set_ylim(ylo, ylo + box.height / s)
 
 
-def figure(traces):
-    """A matplotlib Figure of one or two :class:`Trace` objects (the second overlaid).
+def _trace_keys(traces, styles):
+    """Legend handles naming each trace by its line style (only when comparing)."""
+    from matplotlib.lines import Line2D
+    if len(traces) < 2:
+        return [], []
+    return ([Line2D([], [], ls=st, color="#444444", lw=1.6) for st in styles[:len(traces)]],
+            [f"{'solid' if st == '-' else 'dotted'}: {tr.label}" for st, tr in zip(styles, traces)])
 
-    Legends sit along the top of their panels with the data kept below them; the
-    twist panel's m/s and rad/s axes share their zero line.
+
+def _none(ax, text):
+    """An empty panel says so."""
+    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color="#666666", fontsize=10)
+
+
+def figure(traces):
+    """A matplotlib Figure of one or two :class:`Trace` objects (the second overlaid, dotted).
+
+    Panels (``fig.trundle_axes`` names them): ``path`` (x-y path, heading ticks, start and end,
+    ICR points, and the odometry estimate when the trace has one), ``slip``, ``odometry``
+    (position and heading error of the estimate, when there is one), ``velocity`` (vx, vy),
+    ``turn`` (omega), ``spin`` and ``steer`` (per wheel, command dashed).  Each unit has its
+    own panel, so no two curves of different units can land on each other; wheels (and vx,
+    vy) with identical curves are drawn once with one legend entry naming them all.  Legends
+    sit along the top of their panels with the data kept below them.
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
     from matplotlib.lines import Line2D
 
-    fig = Figure(figsize=(13, 10), dpi=100)
+    fig = Figure(figsize=(13, 11), dpi=100)
     FigureCanvasAgg(fig)
     dropped = unshown_wheels(traces)
-    gs = fig.add_gridspec(3, 2, width_ratios=(1.05, 1.0), hspace=0.38, wspace=0.22,
-                          left=0.06, right=0.94, top=0.915 if dropped else 0.93, bottom=0.06)
-    ax_path = fig.add_subplot(gs[0:2, 0])
-    ax_slip = fig.add_subplot(gs[2, 0])
-    ax_tw = fig.add_subplot(gs[0, 1])
-    ax_spin = fig.add_subplot(gs[1, 1], sharex=ax_tw)
-    ax_steer = fig.add_subplot(gs[2, 1], sharex=ax_tw)
     main = traces[0]
+    odo = [j for j, tr in enumerate(traces) if all(tr.has(c) for c in ODOMETRY)]
+    gs = fig.add_gridspec(4, 2, width_ratios=(1.05, 1.0), hspace=0.42, wspace=0.22,
+                          left=0.06, right=0.94, top=0.92 if dropped else 0.935, bottom=0.05)
+    ax_path = fig.add_subplot(gs[0:2, 0] if odo else gs[0:3, 0])
+    ax_slip = fig.add_subplot(gs[3, 0])
+    ax_odo = ax_odh = None
+    if odo:
+        sub = gs[2, 0].subgridspec(1, 2, wspace=0.3)
+        ax_odo = fig.add_subplot(sub[0, 0])
+        ax_odh = fig.add_subplot(sub[0, 1], sharex=ax_odo)
+    ax_v = fig.add_subplot(gs[0, 1])
+    ax_w = fig.add_subplot(gs[1, 1], sharex=ax_v)
+    ax_spin = fig.add_subplot(gs[2, 1], sharex=ax_v)
+    ax_steer = fig.add_subplot(gs[3, 1], sharex=ax_v)
+    fig.trundle_axes = {"path": ax_path, "slip": ax_slip, "odometry": ax_odo, "odometry_heading": ax_odh,
+                        "velocity": ax_v, "turn": ax_w, "spin": ax_spin, "steer": ax_steer}
     title = main.label if len(traces) == 1 else f"{main.label}  (solid)  vs  {traces[1].label}  (dotted)"
     fig.suptitle(title, fontsize=13, y=0.985)
     if dropped:
-        fig.text(0.5, 0.953, f"note: wheels of {traces[1].label} not drawn: {', '.join(dropped)} "
+        fig.text(0.5, 0.952, f"note: wheels of {traces[1].label} not drawn: {', '.join(dropped)} "
                  f"(the wheel panels show the wheels of {main.label})", ha="center", va="center",
                  fontsize=9, color=PEAK)
     styles = ("-", ":")
     grey = "#666666"
+    keys_h, keys_l = _trace_keys(traces, styles)
     # path
     box = []
     for j, tr in enumerate(traces):
@@ -244,6 +304,11 @@ def figure(traces):
         if j == 0:
             start_end = (start, end)
         box.append((np.nanmin(tr["x"]), np.nanmax(tr["x"]), np.nanmin(tr["y"]), np.nanmax(tr["y"])))
+        if j in odo:
+            ax_path.plot(tr["odom_x"], tr["odom_y"], "--" if j == 0 else (0, (1, 3)), color=ODOM, lw=1.6,
+                         label=f"odometry estimate{' ' + tr.label if len(traces) > 1 else ''}", zorder=2.5)
+            box.append((np.nanmin(tr["odom_x"]), np.nanmax(tr["odom_x"]),
+                        np.nanmin(tr["odom_y"]), np.nanmax(tr["odom_y"])))
     b = np.array(box)
     x0, x1, y0, y1 = b[:, 0].min(), b[:, 1].max(), b[:, 2].min(), b[:, 3].max()
     pad = 0.12 * max(x1 - x0, y1 - y0, 0.5)
@@ -261,7 +326,7 @@ def figure(traces):
             ax_path.plot(ix[sel], iy[sel], "x" if j == 0 else "+", color=ICR, ms=5, lw=0, label=lab, zorder=1)
     ax_path.set_xlabel("x (m, world)")
     ax_path.set_ylabel("y (m, world)")
-    ax_path.set_title("path, heading ticks, ICR")
+    ax_path.set_title("path, heading ticks, ICR" + (", odometry estimate (dashed)" if odo else ""))
     ax_path.grid(True, color="#dddddd")
     hs, ls = ax_path.get_legend_handles_labels()
     hs.insert(1, start_end)
@@ -269,77 +334,106 @@ def figure(traces):
     leg = _legend_on_top(ax_path, hs, ls, 2)
     _fit_path_view(ax_path, lim, leg.get_window_extent(fig.canvas.get_renderer()).height + 8)
     ax_path.set_aspect("equal", adjustable="datalim")
-    # twist
-    ax_w = ax_tw.twinx()
-    drawn = {ax_tw: [], ax_w: []}
-    commanded = False
-    for j, tr in enumerate(traces):
-        t = tr["t"]
-        for name, col, ax in (("vx", COLOURS[0], ax_tw), ("vy", COLOURS[1], ax_tw), ("omega", COLOURS[2], ax_w)):
-            unit = "rad/s" if name == "omega" else "m/s"
-            ax.plot(t, tr[name], styles[j], color=col, lw=1.6, label=f"{name} ({unit})" if j == 0 else None)
-            drawn[ax].append(tr[name])
-            if j == 0 and tr.has("cmd_" + name):
-                ax.plot(t, tr["cmd_" + name], "--", color=col, lw=1.0, alpha=0.8)
-                drawn[ax].append(tr["cmd_" + name])
-                commanded = True
-    for ax, yl in zip((ax_tw, ax_w), zero_aligned_limits([_span(drawn[ax_tw]), _span(drawn[ax_w])])):
-        ax.set_ylim(*yl)
-    ax_tw.set_ylabel("vx, vy (m/s)")
+    # odometry error
+    if odo:
+        for j, tr in enumerate(traces):
+            if j not in odo:
+                continue
+            t = tr["t"]
+            pos = np.hypot(tr["odom_x"] - tr["x"], tr["odom_y"] - tr["y"])
+            head = np.degrees(np.abs((tr["odom_theta"] - tr["theta"] + np.pi) % (2 * np.pi) - np.pi))
+            ax_odo.plot(t, pos, styles[j], color=ODOM, lw=1.5, label=f"position error{' ' + tr.label if j else ''}")
+            ax_odh.plot(t, head, styles[j], color=ODOM, lw=1.5, label=f"heading error{' ' + tr.label if j else ''}")
+        for ax, unit, name in ((ax_odo, "m", "position"), (ax_odh, "deg", "heading")):
+            ax.set_title(f"odometry {name} error", fontsize=10)
+            ax.set_ylabel(f"|estimate - truth| ({unit})", fontsize=8)
+            ax.set_xlabel("t (s)")
+            ax.grid(True, color="#dddddd")
+            _zero_limits(ax, [ln.get_ydata() for ln in ax.lines], 1e-6)
+            ax.set_ylim(bottom=0.0)
+    # twist: m/s and rad/s in panels of their own (vx and omega never share an axis)
+    commanded = {ax_v: False, ax_w: False}
+    for ax, names, unit in ((ax_v, ("vx", "vy"), "m/s"), (ax_w, ("omega",), "rad/s")):
+        arrays = [(main[n], main.data.get("cmd_" + n, np.full(len(main["t"]), np.nan))) for n in names]
+        groups = identical_groups(names, arrays)
+        drawn = []
+        for j, tr in enumerate(traces):
+            t = tr["t"]
+            for g in groups:
+                col = TWIST_COLOURS[g[0]]
+                for n in (g[:1] if j == 0 else g):
+                    ax.plot(t, tr[n], styles[j], color=col, lw=1.6,
+                            label=f"{_group_label(g)} ({unit})" if j == 0 else None)
+                    drawn.append(tr[n])
+                    if j == 0 and tr.has("cmd_" + n):
+                        ax.plot(t, tr["cmd_" + n], "--", color=col, lw=1.0, alpha=0.8)
+                        drawn.append(tr["cmd_" + n])
+                        commanded[ax] = True
+        _zero_limits(ax, drawn, 0.05)
+        ax.axhline(0.0, color="#aaaaaa", lw=0.8, zorder=0)
+        ax.grid(True, color="#dddddd")
+    ax_v.set_ylabel("vx, vy (m/s)")
+    ax_v.set_title("body velocity (commanded dashed)")
     ax_w.set_ylabel("omega (rad/s)")
-    ax_tw.set_title("body twist (commanded dashed)")
-    ax_tw.grid(True, color="#dddddd")
-    ax_w.axhline(0.0, color="#aaaaaa", lw=0.8, zorder=0)
-    h1, l1 = ax_tw.get_legend_handles_labels()
-    h2, l2 = ax_w.get_legend_handles_labels()
-    if commanded:
-        h2, l2 = h2 + [Line2D([], [], ls="--", color=grey, lw=1.0)], l2 + ["commanded (dashed)"]
-    _legend_on_top(ax_tw, h1 + h2, l1 + l2, 4, twins=(ax_w,))
-    # wheels
-    steered_any = False
-    spin_cmd = steer_cmd = False
-    for j, tr in enumerate(traces):
-        t = tr["t"]
-        for i, w in enumerate(main.wheels):
-            col = COLOURS[i % len(COLOURS)]
-            if f"{w}.spin" in tr.data:
-                ax_spin.plot(t, tr[f"{w}.spin"], styles[j], color=col, lw=1.4, label=w if j == 0 else None)
-                if j == 0 and tr.has(f"{w}.spin_cmd"):
-                    ax_spin.plot(t, tr[f"{w}.spin_cmd"], "--", color=col, lw=0.9, alpha=0.8)
-                    spin_cmd = True
-            st = tr.data.get(f"{w}.steer")
-            if st is not None and np.nanmax(st) - np.nanmin(st) > 1e-9:
-                steered_any = True
-                ax_steer.plot(t, np.degrees(st), styles[j], color=col, lw=1.4, label=w if j == 0 else None)
-                sc = tr.data.get(f"{w}.steer_cmd")
-                if j == 0 and sc is not None and np.any(np.isfinite(sc)):
-                    ax_steer.plot(t, np.degrees(sc), "--", color=col, lw=0.9, alpha=0.8)
-                    steer_cmd = True
+    ax_w.set_title("body turn rate (commanded dashed)")
+    for ax in (ax_v, ax_w):
+        hs, ls = ax.get_legend_handles_labels()
+        if commanded[ax]:
+            hs, ls = hs + [Line2D([], [], ls="--", color=grey, lw=1.0)], ls + ["commanded (dashed)"]
+        _legend_on_top(ax, hs + keys_h, ls + keys_l, 4)
+    # wheels: identical curves grouped (e.g. the three wheels of one side of a skid-steer base)
+    nan = np.full(len(main["t"]), np.nan)
+    spin_names = [w for w in main.wheels if f"{w}.spin" in main.data]
+    spin_groups = identical_groups(spin_names, [(main[f"{w}.spin"], main.data.get(f"{w}.spin_cmd", nan))
+                                                for w in spin_names])
+    steer_names = [w for w in main.wheels if f"{w}.steer" in main.data
+                   and np.nanmax(main[f"{w}.steer"]) - np.nanmin(main[f"{w}.steer"]) > 1e-9]
+    steer_groups = identical_groups(steer_names, [(main[f"{w}.steer"], main.data.get(f"{w}.steer_cmd", nan))
+                                                  for w in steer_names])
+    colour_of = {w: COLOURS[i % len(COLOURS)] for i, w in enumerate(main.wheels)}
+    flags = {ax_spin: False, ax_steer: False}
+    for ax, groups, part, conv in ((ax_spin, spin_groups, "spin", lambda v: v),
+                                   (ax_steer, steer_groups, "steer", np.degrees)):
+        for j, tr in enumerate(traces):
+            t = tr["t"]
+            for g in groups:
+                col = colour_of[g[0]]
+                for w in (g[:1] if j == 0 else g):
+                    if f"{w}.{part}" not in tr.data:
+                        continue
+                    ax.plot(t, conv(tr[f"{w}.{part}"]), styles[j], color=col, lw=1.4,
+                            label=_group_label(g) if j == 0 else None)
+                    cmd = tr.data.get(f"{w}.{part}_cmd")
+                    if j == 0 and cmd is not None and np.any(np.isfinite(cmd)):
+                        ax.plot(t, conv(cmd), "--", color=col, lw=0.9, alpha=0.8)
+                        flags[ax] = True
     ax_spin.set_ylabel("spin (rad/s)")
     ax_spin.set_title("wheel spin (command dashed)")
-    ax_spin.grid(True, color="#dddddd")
     ax_steer.set_ylabel("steer (deg, body frame)")
     ax_steer.set_xlabel("t (s)")
     ax_steer.set_title("wheel steer (command dashed)")
-    ax_steer.grid(True, color="#dddddd")
-    for ax, cmd, show in ((ax_spin, spin_cmd, bool(main.wheels)), (ax_steer, steer_cmd, steered_any)):
-        if show:
+    for ax, groups, empty in ((ax_spin, spin_groups, "none: no wheel spins"),
+                              (ax_steer, steer_groups, "none: no wheel changes its angle")):
+        ax.grid(True, color="#dddddd")
+        if groups:
             hs, ls = ax.get_legend_handles_labels()
-            if cmd:
+            if flags[ax]:
                 hs, ls = hs + [Line2D([], [], ls="--", color=grey, lw=0.9)], ls + ["command (dashed)"]
-            _legend_on_top(ax, hs, ls, 4)
-    if not steered_any:
-        ax_steer.text(0.5, 0.5, "no wheel changes its angle", transform=ax_steer.transAxes,
-                      ha="center", va="center", color="#666666")
+            _legend_on_top(ax, hs + keys_h, ls + keys_l, 4)
+        else:
+            _none(ax, empty)
     # slip
+    any_slip = False
     for j, tr in enumerate(traces):
         if "slip" not in tr.data:
             continue
         col = PATH if j == 0 else COMPARE
         ax_slip.plot(tr["t"], tr["slip"], styles[j], color=col, lw=1.6, label=f"slip {tr.label}")
-        if math.isfinite(tr.peak_slip):
+        if math.isfinite(tr.peak_slip) and tr.peak_slip > 0:
+            any_slip = True
+            name = f" ({tr.label})" if len(traces) > 1 else ""
             ax_slip.plot([tr.peak_t], [tr.peak_slip], "v", color=PEAK, ms=9, zorder=4)
-            ax_slip.annotate(f"peak {tr.peak_slip:.3g} m/s at {tr.peak_t:g} s", (tr.peak_t, tr.peak_slip),
+            ax_slip.annotate(f"peak {tr.peak_slip:.3g} m/s at {tr.peak_t:g} s{name}", (tr.peak_t, tr.peak_slip),
                              textcoords="offset points", xytext=(8, 4 + 12 * j), fontsize=9, color=PEAK)
     ax_slip.set_xlabel("t (s)")
     ax_slip.set_ylabel("slip (m/s, all wheels)")
@@ -348,6 +442,11 @@ def figure(traces):
     top = max((tr.peak_slip for tr in traces if math.isfinite(tr.peak_slip)), default=0.0)
     top = max(top, 1e-3)
     ax_slip.set_ylim(-0.05 * top, 1.3 * top)
+    if not any_slip:
+        _none(ax_slip, "none: no wheel skids" if any("slip" in tr.data for tr in traces) else "none: no slip column")
+        ax_slip.set_yticks([0.0])
+    if len(traces) > 1 and ax_slip.lines:
+        _legend_on_top(ax_slip, *ax_slip.get_legend_handles_labels(), 2)
     return fig
 
 

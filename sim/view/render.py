@@ -62,6 +62,17 @@ TRAIL_LEN = 5000        # poses kept in the trail
 GHOST_LEN = 40          # earlier footprints kept
 BALL_MIN_PX = 7         # px: smallest radius a ball wheel's disc is drawn with
 _SPEED_EPS = 1e-9       # m/s: slower than this the base counts as at rest
+STATUS_CHECKS = 8       # checks listed in the status box (the rest counted)
+
+
+class Status:
+    """What the window's status box says: ``state`` (``playing`` | ``paused`` | ``finished``),
+    ``speed`` (factor of real time) and ``checks``, (passed, text) pairs shown once finished."""
+
+    __slots__ = ("state", "speed", "checks")
+
+    def __init__(self, state: str, speed: float = 1.0, checks=()):
+        self.state, self.speed, self.checks = state, float(speed), tuple(checks)
 
 
 def _pg():
@@ -262,6 +273,7 @@ class Renderer:
         self._reach = reach(robot)
         self._fonts = {}
         self._surface = None
+        self.texts, self.reserved = [], []
         self.reset()
 
     # -- state --------------------------------------------------------------
@@ -272,6 +284,19 @@ class Renderer:
         self.bounds = None
         self.peak = (0.0, 0.0)
         self._ghost_from = None
+
+    def snapshot(self) -> tuple:
+        """What :meth:`observe` has gathered (trail, earlier footprints, peak slip), to :meth:`restore` later.
+
+        The bounds are not part of it: they keep covering everything seen.
+        """
+        return (tuple(self.trail), tuple(self.ghosts), self.peak, self._ghost_from)
+
+    def restore(self, snap) -> None:
+        """Go back to a :meth:`snapshot` (the bounds stay)."""
+        trail, ghosts, self.peak, self._ghost_from = snap
+        self.trail = deque(trail, maxlen=TRAIL_LEN)
+        self.ghosts = deque(ghosts, maxlen=GHOST_LEN)
 
     def observe(self, row) -> None:
         """Take row k into the trail, the bounds and the peak slip."""
@@ -319,6 +344,16 @@ class Renderer:
         surf.blit(img, rect)
         return rect
 
+    def _text_in_view(self, surf, text, pos, colour=None, size=18, anchor="topleft"):
+        """:meth:`_text`, moved inward as far as needed to show whole inside the view."""
+        pg = _pg()
+        img = self._font(size).render(text, True, colour or PALETTE["ink"])
+        rect = img.get_rect(**{anchor: (int(round(pos[0])), int(round(pos[1])))})
+        l, t, w, h = self.view.rect
+        rect = rect.clamp(pg.Rect(l + 2, t + 2, w - 4, h - 4))
+        surf.blit(img, rect)
+        return rect
+
     def _body_to_screen(self, pose, pts):
         """Screen px, shape (m, 2), of body points ``pts`` (m, 2) m at world ``pose``."""
         pts = np.asarray(pts, dtype=float).reshape(-1, 2)
@@ -346,11 +381,18 @@ class Renderer:
         pg.draw.polygon(surf, colour, self._ipts([p1, base + q * head * 0.55, base - q * head * 0.55]))
 
     # -- the frame ----------------------------------------------------------
-    def draw(self, row, lines=(), notes=()):
+    def draw(self, row, lines=(), notes=(), status=None):
         """Draw the frame for row k and return the surface (owned by the renderer).
 
         lines : extra (label, value) pairs for the panel.
         notes : extra warnings (drawn in vermillion) besides :func:`command_notes`.
+        status : a :class:`Status` (playing / paused / finished, speed, checks) boxed in
+        the top left corner of the view, or None.
+
+        After drawing, ``texts`` lists what was written in the view as
+        ``(text, rect, colour, background, size)`` (grid labels and the status box),
+        and ``reserved`` the rects of the insets (scale bar, axes, status) that grid
+        labels keep clear of.
         """
         pg = _pg()
         if self._surface is None:
@@ -359,9 +401,10 @@ class Renderer:
         pose = np.asarray(row.pose, dtype=float)
         if self.follow:
             self.view.center = pose[:2].copy()
+        self.texts, self.reserved = [], []
         surf.fill(PALETTE["paper"])
         surf.set_clip(pg.Rect(self.view.rect))
-        self._grid(surf)
+        labels = self._grid(surf)
         self._ghosts(surf)
         self._footprint(surf, pose, PALETTE["body_fill"], None, 2)
         self._path(surf)                    # over the fill: the path runs up to the body origin
@@ -372,11 +415,16 @@ class Renderer:
         self._skids(surf, row)
         self._icr(surf, row)
         self._scale_bar(surf)
+        self._compass(surf)
+        if status is not None:
+            self._status(surf, status)
+        self._grid_labels(surf, labels)     # last: on their own background, clear of the insets
         surf.set_clip(None)
         self._panel(surf, row, lines, list(notes))
         return surf
 
     def _grid(self, surf):
+        """Grid lines; returns the labels of the major ones, ``[(pixel, value m, anchor)]``."""
         pg = _pg()
         v = self.view
         step = nice_step(40.0 / v.scale)
@@ -401,18 +449,79 @@ class Renderer:
                     pg.draw.line(surf, col, (l, vv), (l + w - 1, vv), 1)
                     if major:
                         labels.append(((l + w - 4, vv - 2), val, "bottomright"))
+        return labels
+
+    def _grid_labels(self, surf, labels):
+        """The grid values, each whole inside the view, on a paper-coloured box (no line crosses
+        it), clear of the insets and of each other; a label that cannot be placed so is left out."""
+        pg = _pg()
+        l, t, w, h = self.view.rect
+        inner = pg.Rect(l + 2, t + 2, w - 4, h - 4)
+        placed = []
         for pos, val, anchor in labels:
-            if (anchor == "topleft" and pos[0] > l + w - 70) or (anchor == "bottomright" and pos[1] < t + 30):
-                continue    # keep the top right corner for one label only
             txt = f"{round(val, 6) + 0.0:g} m"
-            self._text(surf, txt, pos, PALETTE["muted"], 16, anchor)
-        # world axes, bottom right of the view
-        pg.draw.rect(surf, PALETTE["panel"], pg.Rect(l + w - 78, t + h - 78, 66, 66))
+            img = self._font(16).render(txt, True, PALETTE["muted"])
+            rect = img.get_rect(**{anchor: (int(round(pos[0])), int(round(pos[1])))})
+            box = rect.inflate(4, 2)
+            if not inner.contains(box) or box.collidelist(self.reserved + placed) >= 0:
+                continue
+            pg.draw.rect(surf, PALETTE["paper"], box)
+            surf.blit(img, rect)
+            placed.append(box)
+            self.texts.append((txt, rect, PALETTE["muted"], PALETTE["paper"], 16))
+
+    def _compass(self, surf):
+        """World axes, bottom right of the view."""
+        pg = _pg()
+        l, t, w, h = self.view.rect
+        box = pg.Rect(l + w - 78, t + h - 78, 66, 66)
+        pg.draw.rect(surf, PALETTE["panel"], box)
+        self.reserved.append(box)
         o = (l + w - 64, t + h - 24)
         self._arrow(surf, PALETTE["muted"], o, (o[0] + 34, o[1]), 2, 7)
         self._arrow(surf, PALETTE["muted"], o, (o[0], o[1] - 34), 2, 7)
         self._text(surf, "x", (o[0] + 38, o[1]), PALETTE["muted"], 16, "midleft")
         self._text(surf, "y", (o[0], o[1] - 38), PALETTE["muted"], 16, "midbottom")
+
+    def _status(self, surf, status):
+        """The run's state, speed and (finished) each check's PASS / FAIL, boxed top left in the view."""
+        pg = _pg()
+        l, t, w, h = self.view.rect
+        x0, y0 = l + 12, t + 26
+        width = min(w - 120, 620)
+        size = 18
+        state_col = {"playing": PALETTE["path"], "paused": PALETTE["wheel_slip"],
+                     "finished": PALETTE["body_edge"]}.get(status.state, PALETTE["ink"])
+        rows = [((status.state, state_col), (f"speed x{status.speed:g}", PALETTE["ink"]))]
+        checks = list(status.checks)
+        shown = checks[:STATUS_CHECKS]
+        for passed, text in shown:
+            rows.append((("PASS", PALETTE["body_edge"]) if passed else ("FAIL", PALETTE["skid"]),
+                         (text, PALETTE["ink"])))
+        if len(checks) > len(shown):
+            rows.append((("", PALETTE["ink"]), (f"... and {len(checks) - len(shown)} more "
+                                                f"({sum(not p for p, _ in checks)} failed in all)", PALETTE["muted"])))
+        if status.state == "finished" and not checks:
+            rows.append((("", PALETTE["ink"]), ("no checks in this scenario", PALETTE["muted"])))
+        f = self._font(size)
+        width = min(width, 100 + max(f.size(b)[0] for (_, _), (b, _) in rows))     # no wider than its text
+        box = pg.Rect(x0, y0, width, 10 + 22 * len(rows))
+        pg.draw.rect(surf, PALETTE["panel"], box)
+        pg.draw.rect(surf, state_col, box, 2)
+        self.reserved.append(box)
+        for i, ((a, ca), (b, cb)) in enumerate(rows):
+            y = y0 + 6 + 22 * i
+            for text, col, x, room in ((a, ca, x0 + 10, 74), (b, cb, x0 + 90, width - 100)):
+                if not text:
+                    continue
+                if f.size(text)[0] > room:                  # shorten to fit the box, marked with "..."
+                    while text and f.size(text + "...")[0] > room:
+                        text = text[:-1]
+                    text += "..."
+                img = f.render(text, True, col)
+                rect = img.get_rect(topleft=(x, y))
+                surf.blit(img, rect)
+                self.texts.append((text, rect, col, PALETTE["panel"], size))
 
     def _ghosts(self, surf):
         for g in self.ghosts:
@@ -547,7 +656,7 @@ class Renderer:
                 pg.draw.circle(surf, col, p, 12, 4)
                 pg.draw.circle(surf, col, p, 4)
                 pg.draw.circle(surf, PALETTE["ink"], p, 13, 1)
-                self._text(surf, "ICR", (p[0] + 16, p[1] - 14), PALETTE["ink"], 18, "topleft")
+                self._text_in_view(surf, "ICR", (p[0] + 16, p[1] - 14), PALETTE["ink"], 18, "topleft")
             else:
                 e = np.array(self.view.edge_point(px))
                 d = np.subtract(px, e)
@@ -559,7 +668,7 @@ class Renderer:
                 pg.draw.polygon(surf, PALETTE["ink"], tri, 1)
                 dist = math.hypot(row.icr[0] - row.pose[0], row.icr[1] - row.pose[1])
                 lab = e - d * 22
-                self._text(surf, f"ICR {dist:.3g} m", lab, PALETTE["ink"], 18, "center")
+                self._text_in_view(surf, f"ICR {dist:.3g} m", lab, PALETTE["ink"], 18, "center")
             return
         tw = np.asarray(row.twist, dtype=float)
         speed = math.hypot(tw[0], tw[1])
@@ -574,7 +683,7 @@ class Renderer:
         q = np.array([-d[1], d[0]])
         start = p0 + d * (self._reach * self.view.scale + 10)
         self._double_arrow(surf, col, start, d, q)
-        self._text(surf, "ICR at infinity", start + d * 64 + q * 16, PALETTE["ink"], 18, "center")
+        self._text_in_view(surf, "ICR at infinity", start + d * 64 + q * 16, PALETTE["ink"], 18, "center")
 
     def _double_arrow(self, surf, col, start, d, q):
         pg = _pg()
@@ -590,7 +699,9 @@ class Renderer:
         length = nice_step(110.0 / self.view.scale)
         px = int(round(length * self.view.scale))
         x0, y0 = l + 22, t + h - 22
-        pg.draw.rect(surf, PALETTE["panel"], pg.Rect(x0 - 8, y0 - 28, px + 16, 38))
+        box = pg.Rect(x0 - 8, y0 - 28, px + 16, 38)
+        pg.draw.rect(surf, PALETTE["panel"], box)
+        self.reserved.append(box)
         pg.draw.line(surf, PALETTE["ink"], (x0, y0), (x0 + px, y0), 3)
         for xx in (x0, x0 + px):
             pg.draw.line(surf, PALETTE["ink"], (xx, y0 - 6), (xx, y0 + 4), 2)
@@ -747,7 +858,8 @@ class Window:
 
     :meth:`events` returns tuples: ``("key", name)`` with pygame's key name
     (``"up"``, ``"w"``, ``"space"``, ``"escape"``; ``=``, ``]`` and keypad plus
-    read ``"+"``, ``[`` and keypad minus ``"-"``), ``("quit",)``,
+    read ``"+"``, ``[`` and keypad minus ``"-"``), ``("keyup", name)`` when it
+    is released, ``("unfocus",)`` when the window loses the keyboard, ``("quit",)``,
     ``("zoom", factor, (u, v))`` and ``("pan", du, dv)`` (px).
     ``hidden=True`` opens no visible window (tests, with the dummy driver).
     """
@@ -775,6 +887,7 @@ class Window:
         if key_repeat:
             pg.key.set_repeat(*key_repeat)
         self._clock = pg.time.Clock()
+        self.hidden = hidden
         self._drag = False
         self.stick = None
         if joystick:
@@ -795,6 +908,11 @@ class Window:
             elif ev.type == pg.KEYDOWN:
                 name = pg.key.name(ev.key)
                 out.append(("key", _KEY_ALIASES.get(name, name)))
+            elif ev.type == pg.KEYUP:
+                name = pg.key.name(ev.key)
+                out.append(("keyup", _KEY_ALIASES.get(name, name)))
+            elif ev.type == getattr(pg, "WINDOWFOCUSLOST", None):
+                out.append(("unfocus",))
             elif ev.type == pg.MOUSEWHEEL:
                 out.append(("zoom", 1.2 ** ev.y, pg.mouse.get_pos()))
             elif ev.type == pg.MOUSEBUTTONDOWN and ev.button == 1:
@@ -815,6 +933,21 @@ class Window:
         if self.stick is None:
             return None
         return [self.stick.get_axis(i) for i in range(self.stick.get_numaxes())]
+
+    def buttons(self):
+        """Pressed state (bool) of each button of the first gamepad, or None when there is none."""
+        if self.stick is None:
+            return None
+        return [bool(self.stick.get_button(i)) for i in range(self.stick.get_numbuttons())]
+
+    def keys_down(self, names):
+        """Which of the key ``names`` the keyboard reports held now (a set), or None for a
+        hidden window (tests post their own events, which the keyboard state does not see)."""
+        if self.hidden:
+            return None
+        pg = _pg()
+        pressed = pg.key.get_pressed()
+        return {n for n in names if pressed[pg.key.key_code(n)]}
 
     def show(self, surface, help_lines=None) -> None:
         """Copy ``surface`` to the screen and flip; ``help_lines``: (key, meaning) pairs boxed on top."""

@@ -74,9 +74,10 @@ def matrices_text(robot, mats, heading) -> str:
     L.append(matrix_text("J1s  rolling rows, driven wheels of variable angle", s.J1s, s.J1s_names))
     L.append(matrix_text("C1f  no-sliding rows, fixed wheels", s.C1f, s.C1f_names))
     L.append(matrix_text("C1s  no-sliding rows, steered wheels", s.C1s, s.C1s_names))
-    L.append(matrix_text("C1c  no-sliding rows, castors (plus C2 * steering rate)", s.C1c, s.C1c_names))
+    L.append(matrix_text("C1c  no-sliding rows, castors: C1c xi + C2 hdot = 0 (hdot: steering rate, rad/s)",
+                         s.C1c, s.C1c_names))
     if len(s.C2):
-        L.append("C2   castor trails (m): " + ", ".join(f"{n} {v:g}" for n, v in zip(s.C1c_names, s.C2)))
+        L.append("C2   minus the castor trails (m): " + ", ".join(f"{n} {v:g}" for n, v in zip(s.C1c_names, s.C2)))
     L.append("J2   r cos(roller) of driven wheels (m): "
              + (", ".join(f"{n} {v:.6g}" for n, v in zip(s.driven_names, s.J2)) or "none"))
     L.append("")
