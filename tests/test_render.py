@@ -348,3 +348,31 @@ def test_ball_wheels_are_grey_discs_unlike_the_origin_dot():
         assert tuple(img[v, u + render.BALL_MIN_PX - 3]) == PALETTE["ball"]
         r = render.BALL_MIN_PX
         assert all(colour_near(img, u + du, v + dv, PALETTE["ink"]) for du, dv in ((r, 0), (-r, 0), (0, r), (0, -r)))
+
+
+def test_route_waypoints_and_target_point_are_drawn():
+    # a planned L route: grey band along it, waypoint circles, the target at the plan's pose at t
+    from dataclasses import replace
+
+    from sim.model.route import Route
+    from sim.theory.speedplan import plan_route
+
+    rb = robot("tote-mecanum")
+    rt = Route("l", [[0, 0], [2, 0], [2, 1.5]], (None, None, None))
+    plan = plan_route(rb, rt)
+    k = int(np.flatnonzero(plan.pose[:, 0] > 1.0)[0])        # a plan row on the first leg
+    rd = Renderer(rb, (W, H))
+    rd.set_route(plan.path.xy, rt.waypoints, plan)
+    rd.view = View((PANEL_W, 0, W - PANEL_W, H), center=(1.0, 0.75), scale=200.0)
+    row = replace(Simulator(rb, 0.01, start=(0.2, 1.2, 0.0)).step(), t=float(plan.t[k]))
+    img = drawn(rd, row)
+    tx, ty = plan.pose[k, :2]
+    assert colour_near(img, *hand_pixel(tx, ty, (1.0, 0.75), 200.0), PALETTE["target"])
+    assert colour_near(img, *hand_pixel(2.0, 0.75, (1.0, 0.75), 200.0), PALETTE["route"])   # second leg
+    u, v = hand_pixel(2.0, 1.5, (1.0, 0.75), 200.0)
+    assert colour_near(img, u, v - 6, PALETTE["ink"]) and colour_near(img, u, v, PALETTE["panel"])
+    # the view fits the route, not just the poses seen
+    rd2 = Renderer(rb, (W, H))
+    rd2.set_route(plan.path.xy, rt.waypoints, plan)
+    rd2.fit(None)
+    assert rd2.view.inside(*rd2.view.to_screen(2.0, 1.5)) and rd2.view.inside(*rd2.view.to_screen(0.0, 0.0))
