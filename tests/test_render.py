@@ -352,8 +352,7 @@ def test_ball_wheels_are_grey_discs_unlike_the_origin_dot():
 
 def test_route_waypoints_and_target_point_are_drawn():
     # a planned L route: grey band along it, waypoint circles, the target at the plan's pose at t
-    from dataclasses import replace
-
+    from sim.engine.record import ROW, StepResult
     from sim.model.route import Route
     from sim.theory.speedplan import plan_route
 
@@ -364,7 +363,10 @@ def test_route_waypoints_and_target_point_are_drawn():
     rd = Renderer(rb, (W, H))
     rd.set_route(plan.path.xy, rt.waypoints, plan)
     rd.view = View((PANEL_W, 0, W - PANEL_W, H), center=(1.0, 0.75), scale=200.0)
-    row = replace(Simulator(rb, 0.01, start=(0.2, 1.2, 0.0)).step(), t=float(plan.t[k]))
+    row = Simulator(rb, 0.01, start=(0.2, 1.2, 0.0)).step()
+    vals = row.values.copy()
+    vals[ROW["t"]] = plan.t[k]                              # the same row, at the plan's time
+    row = StepResult(vals, row.n)
     img = drawn(rd, row)
     tx, ty = plan.pose[k, :2]
     assert colour_near(img, *hand_pixel(tx, ty, (1.0, 0.75), 200.0), PALETTE["target"])

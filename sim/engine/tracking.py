@@ -20,6 +20,13 @@ dt).  A base exactly on its reference and driven by this twist for one step land
 exactly on the reference again: the plan is the feedforward, the feedback below only
 removes errors.
 
+Timing: the engine moves a base over the step from t_k with the actuators as they are
+at t_k, and rate-limited actuators reach a new command only over that step (see
+:mod:`sim.engine.step`).  So a command given at t_k shapes the motion from t_k+1 on.
+:func:`control` therefore looks one step ahead (``lead``): it predicts the pose at
+t_k+1 from the motion already under way (:func:`motion_now`, the engine's own forward
+kinematics) and computes the law there, for the step from t_k+1.
+
 Laws (gains as arrays, see :data:`GAIN_NAMES`):
 
 * ``LAW_OMNI`` -- omnidirectional bases track position and heading independently:
@@ -51,6 +58,10 @@ import math
 import numpy as np
 
 from sim.engine.jit import kernel
+from sim.theory.constraints import motion_rows_into
+from sim.theory.kinematics import solve_motion
+from sim.theory.linalg import pinv_into
+from sim.theory.se2 import compose, exp_increment
 
 LAW_OMNI, LAW_KANAYAMA, LAW_STEERED = 0, 1, 2
 LAWS = {"omni": LAW_OMNI, "kanayama": LAW_KANAYAMA, "steered": LAW_STEERED}
@@ -69,6 +80,17 @@ GAIN_UNITS = {"k_position": "1/s", "k_heading": "1/s", "k_x": "1/s", "k_y": "1/m
 HINT_SPEED = 1e-4       # m/s per unit hint: the creep that pre-steers wheels while the plan waits
 PATH_WINDOW = 400       # path samples searched on either side of the reference for the path error
 OUT_SIZE = 7            # control() output: twist (3), reference pose (3), path error (1)
+
+
+@kernel
+def motion_now(P, scale, heading, spin, A, Pm, rows, W, residual, xi):
+    """Body twist ``xi`` (3,) the wheels give at ``heading``, ``spin`` (n,): the motion from
+    t_k that the engine computes (the same rows, map and solve as :mod:`sim.engine.step`).
+    ``P`` the packed wheels, ``scale`` the twist metric (3,); ``A`` (2n, 3), ``Pm`` (3, 2n),
+    ``rows`` (2, 2n) int, ``W`` (2n, 3), ``residual`` (2n,) are workspace."""
+    m = motion_rows_into(P, heading, A, rows[0], rows[1])
+    pinv_into(A, m, scale, W, Pm)
+    solve_motion(P, A, Pm, m, rows[0], rows[1], spin, xi, residual)
 
 
 @kernel
@@ -232,36 +254,50 @@ def kanayama_law(pose, ref, ff, gains, frame, out):
 
 
 @kernel
-def control(law, pose, t, dt, plan_t, plan_pose, plan_speed, plan_hint, plan_index, path_xy, frame,
-            gains, size, steered, out):
+def control(law, pose, now, lead, t, dt, plan_t, plan_pose, plan_speed, plan_hint, plan_index, path_xy,
+            frame, gains, size, steered, out):
     """One step of tracking: the body twist command for a base at ``pose`` (3,) at time ``t``.
 
-    law : LAW_OMNI | LAW_KANAYAMA | LAW_STEERED.  dt : s, the step.  frame : (gx, gy, phi)
-    the tracked point (LAW_KANAYAMA; also where the path error is measured).  gains :
-    (k,) as :data:`GAIN_NAMES`.  size : m, the base's size (turn rates to speeds).
-    steered : the base has steered wheels (creep along the hint while the plan waits).
-    Writes ``out`` (7,): the twist (vx, vy, omega) m/s, m/s, rad/s; the reference pose
-    (x, y, theta); the tracked point's distance from the path (m).
+    law : LAW_OMNI | LAW_KANAYAMA | LAW_STEERED.  now : (3,) the body twist the base moves
+    with from t to t + dt (:func:`motion_now`).  lead : True when the command shapes the
+    motion only from t + dt (rate-limited actuators; module docstring), False when at once.
+    dt : s, the step.  frame : (gx, gy, phi) the tracked point (LAW_KANAYAMA; also where the
+    path error is measured).  gains : (k,) as :data:`GAIN_NAMES`.  size : m, the base's size
+    (turn rates to speeds).  steered : the base has steered wheels (creep along the hint
+    while the plan waits).  Writes ``out`` (7,): the twist command (vx, vy, omega) m/s, m/s,
+    rad/s; the reference pose at t (x, y, theta); the tracked point's distance from the path
+    at t (m).
     """
     ref = np.empty(3)
     ff = np.empty(3)
     cmd = np.empty(3)
-    k = feedforward(plan_t, plan_pose, plan_speed, t, dt, ff)
-    reference(plan_t, plan_pose, plan_speed, t, ref)
-    if law == LAW_KANAYAMA:
-        kanayama_law(pose, ref, ff, gains, frame, cmd)
-    elif law == LAW_STEERED:
-        steered_law(pose, ref, ff, gains, size, t >= plan_t[plan_t.shape[0] - 1], cmd)
-    else:
-        omni_law(pose, ref, ff, gains, cmd)
-    if steered and math.hypot(ff[0], ff[1]) + size * abs(ff[2]) < 1e-9:
-        h = _hint_at(plan_t, plan_hint, k, t)
-        for i in range(3):
-            cmd[i] += HINT_SPEED * plan_hint[h, i]
+    at = np.empty(3)
+    k = reference(plan_t, plan_pose, plan_speed, t, ref)
     for i in range(3):
-        out[i] = cmd[i]
         out[3 + i] = ref[i]
     c, s = math.cos(pose[2]), math.sin(pose[2])
     px = pose[0] + c * frame[0] - s * frame[1]
     py = pose[1] + s * frame[0] + c * frame[1]
     out[6] = path_error(px, py, plan_index, k, path_xy)
+    # where and when the command takes effect
+    te = t
+    for i in range(3):
+        at[i] = pose[i]
+    if lead:
+        dx, dy, dth = exp_increment(now[0], now[1], now[2], dt)
+        at[0], at[1], at[2] = compose(pose[0], pose[1], pose[2], dx, dy, dth)
+        te = t + dt
+    ke = feedforward(plan_t, plan_pose, plan_speed, te, dt, ff)
+    reference(plan_t, plan_pose, plan_speed, te, ref)
+    if law == LAW_KANAYAMA:
+        kanayama_law(at, ref, ff, gains, frame, cmd)
+    elif law == LAW_STEERED:
+        steered_law(at, ref, ff, gains, size, te >= plan_t[plan_t.shape[0] - 1], cmd)
+    else:
+        omni_law(at, ref, ff, gains, cmd)
+    if steered and math.hypot(ff[0], ff[1]) + size * abs(ff[2]) < 1e-9:
+        h = _hint_at(plan_t, plan_hint, ke, te)
+        for i in range(3):
+            cmd[i] += HINT_SPEED * plan_hint[h, i]
+    for i in range(3):
+        out[i] = cmd[i]

@@ -7,8 +7,9 @@ reference pose ``ref_x, ref_y, ref_theta`` (world, m, rad; blank while no contro
 drives) and ``track_error``, the tracked point's distance from the planned path (m).
 
 The stepping itself is the small loop in :meth:`ClosedLoop._steps`: per step, the
-control law (:func:`sim.engine.tracking.control`, compiled) and one
-:meth:`Simulator.step`.  It is kept apart so that a compiled engine can take it over.
+motion already under way (:func:`sim.engine.tracking.motion_now`), the control law
+(:func:`sim.engine.tracking.control`, compiled) and one :meth:`Simulator.step`.  It is
+kept apart so that the compiled stretch of the engine can take it over.
 """
 from __future__ import annotations
 
@@ -16,19 +17,15 @@ import math
 
 import numpy as np
 
-from sim.engine.chunked import Block
-from sim.engine.simulator import Simulator
-from sim.engine.tracking import DEFAULT_GAINS, LAWS, OUT_SIZE, control
+from sim.engine.record import Block
+from sim.engine.tracking import DEFAULT_GAINS, LAWS, OUT_SIZE, control, motion_now
 from sim.errors import InputError
 from sim.model.route import DEFAULT_TOLERANCE, Route
-from sim.theory.se2 import body_twist_for_world
+from sim.theory.kinematics import twist_scale
+from sim.theory.se2 import body_twist_for_world, wrap
 from sim.theory.speedplan import motion_of, plan_route, plan_turn
 
 COLUMNS = ("ref_x", "ref_y", "ref_theta", "track_error")
-
-
-def _wrap(a):
-    return (a + math.pi) % (2 * math.pi) - math.pi
 
 
 class _Tracking:
@@ -48,19 +45,30 @@ class _Tracking:
         self.goal = np.array(plan.end_pose, dtype=float)
 
 
+def lead_of(robot) -> bool:
+    """Whether a command shapes the motion only from the next row: some drive has a
+    ``max_spin_accel`` or some steered wheel a ``max_steer_rate`` (the engine ramps them
+    over the step; unlimited actuators are at their command at once)."""
+    a = robot.arrays
+    st = a.is_("steered")
+    return bool(np.any(np.isfinite(a.max_spin_accel[a.driven])) or np.any(np.isfinite(a.max_steer_rate[st])))
+
+
 class ClosedLoop:
-    """Runs ``scen`` under control.  ``entry_steps`` (list) is the step at which each script
-    entry takes effect and ``apply(sim, command)`` applies an open-loop entry (both from
-    :mod:`sim.runs.runner`).  ``odo``: an :class:`~sim.odometry.encoders.Odometer` or None;
-    ``on_row``: called with every :class:`~sim.engine.simulator.StepResult`.
+    """Runs ``scen`` under control on the simulator ``sim`` (at the scenario's start).
+    ``entry_steps`` (list) is the step at which each script entry takes effect and
+    ``apply(sim, command)`` applies an open-loop entry (both from :mod:`sim.runs.runner`).
+    ``odo``: an :class:`~sim.odometry.encoders.Odometer` or None; ``on_row``: called with
+    every :class:`~sim.engine.record.StepResult`.
 
     After the run, :meth:`summary` gives the tracking figures the checks use.
     """
 
     columns = COLUMNS
 
-    def __init__(self, scen, entry_steps, apply, odo=None, on_row=None):
+    def __init__(self, scen, entry_steps, apply, sim, odo=None, on_row=None):
         self.scen = scen
+        self.sim = sim
         self.ks = list(entry_steps)
         self.apply = apply
         self.odo = odo
@@ -78,6 +86,10 @@ class ClosedLoop:
         self.plan_time = scen.plan.time if scen.plan is not None else None
         self.track = None
         self.world = None
+        self.lead = lead_of(scen.robot)
+        n = len(scen.robot.wheels)
+        self._fk = (scen.robot.packed, twist_scale(scen.robot), np.zeros((2 * n, 3)), np.zeros((3, 2 * n)),
+                    np.zeros((2, 2 * n), dtype=np.int64), np.zeros((2 * n, 3)), np.zeros(2 * n))
 
     # -- script ------------------------------------------------------------------------
     def _command(self, sim, i, cmd):
@@ -109,7 +121,12 @@ class ClosedLoop:
         if not plan.feasible:
             raise InputError(self.scen.source, cmd.line, f"goto ({x:g}, {y:g}) from ({here[0]:.4g}, {here[1]:.4g}): "
                              f"{plan.reason}")
-        return _Tracking(plan, sim.t, self.motion, self.gains, robot)
+        return _Tracking(plan, sim.t + self._delay(), self.motion, self.gains, robot)
+
+    def _delay(self) -> float:
+        """s: when a plan begins after the step it is made at.  With rate-limited actuators the
+        first command moves the base only from the next row, so the plan starts there."""
+        return self.sim.dt if self.lead else 0.0
 
     # -- the stepping loop (to be replaced by the compiled engine) -----------------------
     def _steps(self, sim, n):
@@ -117,21 +134,27 @@ class ClosedLoop:
         script, ks = self.scen.script, self.ks
         dt = sim.dt
         out = np.empty(OUT_SIZE)
+        now = np.zeros(3)
         nan3 = np.full(3, np.nan)
+        P, scale, A, Pm, rows, W, res = self._fk
         j = 0
         for k in range(n):
             while j < len(ks) and ks[j] <= k:
                 self._command(sim, j, script[j])
                 j += 1
             tr = self.track
+            if tr is not None or self.world is not None:
+                motion_now(P, scale, sim.heading, sim.spin, A, Pm, rows, W, res, now)
             if tr is not None:
                 pt, pp, pv, ph, pi, pxy = tr.arrays
-                control(tr.law, sim.pose, sim.t - tr.t0, dt, pt, pp, pv, ph, pi, pxy, tr.frame, tr.gains,
-                        tr.size, tr.steered, out)
+                control(tr.law, sim.pose, now, self.lead, sim.t - tr.t0, dt, pt, pp, pv, ph, pi, pxy, tr.frame,
+                        tr.gains, tr.size, tr.steered, out)
                 row = sim.step(twist=out[:3].copy())
                 yield row, out[3:6].copy(), float(out[6])
             elif self.world is not None:
-                yield sim.step(twist=body_twist_for_world(float(sim.pose[2]), self.world, dt)), nan3, math.nan
+                # the command acts from the heading the base will have when it takes effect
+                th = float(sim.pose[2]) + (float(now[2]) * dt if self.lead else 0.0)
+                yield sim.step(twist=body_twist_for_world(th, self.world, dt)), nan3, math.nan
             else:
                 yield sim.step(), nan3, math.nan
 
@@ -139,28 +162,35 @@ class ClosedLoop:
     def blocks(self, block_rows: int = 1024):
         """Yield (Block, extra (m, len(odo columns) + 4)) covering the run."""
         scen = self.scen
-        sim = Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance)
+        sim = self.sim
         if scen.plan is not None:
-            self.track = _Tracking(scen.plan, 0.0, self.motion, self.gains, scen.robot)
+            self.track = _Tracking(scen.plan, self._delay(), self.motion, self.gains, scen.robot)
         rows, extra, k0 = [], [], 0
         try:
             for row, ref, err in self._steps(sim, scen.steps):
                 self._observe(row, ref, err)
-                odo = self.odo.update(row) if self.odo else ()
                 rows.append(row)
-                extra.append(np.concatenate([np.asarray(odo, float), ref, [err]]))
+                extra.append(np.concatenate([ref, [err]]))
                 if self.on_row is not None:
                     self.on_row(row)
                 if len(rows) == block_rows:
-                    yield Block.from_rows(k0, rows), np.asarray(extra)
+                    yield self._block(k0, rows, extra)
                     k0 += len(rows)
                     rows, extra = [], []
         except KeyboardInterrupt:
             if rows:
-                yield Block.from_rows(k0, rows), np.asarray(extra)
+                yield self._block(k0, rows, extra)
             raise
         if rows:
-            yield Block.from_rows(k0, rows), np.asarray(extra)
+            yield self._block(k0, rows, extra)
+
+    def _block(self, k0, rows, extra):
+        """(Block, extra columns: the odometer's, then COLUMNS) of the rows from k0."""
+        block = Block(k0, np.stack([r.values for r in rows]), self.sim.n)
+        ref = np.asarray(extra, dtype=float)
+        if self.odo is not None:
+            ref = np.hstack([self.odo.update_block(block), ref])
+        return block, ref
 
     def _observe(self, row, ref, err):
         if math.isfinite(err):
@@ -171,7 +201,7 @@ class ClosedLoop:
             return
         goal = self.track.goal
         d = math.hypot(row.pose[0] - goal[0], row.pose[1] - goal[1])
-        e = abs(_wrap(row.pose[2] - goal[2]))
+        e = abs(wrap(row.pose[2] - goal[2]))
         for tol in self.tolerances:
             if d <= tol[0] and e <= tol[1]:
                 if self.inside[tol] is None:

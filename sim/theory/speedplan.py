@@ -281,9 +281,8 @@ def _choose(robot, raw, current, where_text, waypoint):
     for j, i in enumerate(st):
         if not math.isfinite(raw[j]):
             continue
-        ang, _ = choose_angle(np.array([raw[j]]), 1.0, np.array([current[j]]), a.steer_lo[i:i + 1],
-                              a.steer_hi[i:i + 1])
-        v = float(ang[0])
+        v, _ = choose_angle(float(raw[j]), float(current[j]), float(a.steer_lo[i]), float(a.steer_hi[i]))
+        v = float(v)
         if not a.steer_lo[i] - 1e-9 <= v <= a.steer_hi[i] + 1e-9:
             w = robot.wheels[i]
             raise _Infeasible(f"{where_text}: {w.name} would have to point at {math.degrees(wrap_turn(raw[j])):.1f} "
