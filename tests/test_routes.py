@@ -15,7 +15,7 @@ import pytest
 
 from sim.files.robotfile import load_robot
 from sim.model.route import Route
-from sim.theory.speedplan import PHASE_DRIVE, motion_of, plan_route, trapezoid_time
+from sim.theory.speedplan import motion_of, plan_route, trapezoid_time
 
 from conftest import ROBOTS
 

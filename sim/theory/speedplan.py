@@ -562,7 +562,8 @@ def _plan(robot, route, motion, ds, steer, start_heading) -> Plan:
         tail.append(("turn", turn_end, wp))
 
     # -- velocity limits and the speed profile ---------------------------------------
-    X, names_X = _velocity_limits(robot, route, W, S)
+    M, names_X = _velocity_limits(robot, route, W, S)
+    X = np.min(M, axis=1)
     x = np.zeros(m)
     for (i0, i1) in segments:
         x[i0:i1 + 1] = _topp(S.s[i0:i1 + 1], X[i0:i1 + 1], W.J[i0:i1 + 1], W.dJ[i0:i1 + 1],
@@ -576,12 +577,12 @@ def _plan(robot, route, motion, ds, steer, start_heading) -> Plan:
     if np.any((dsv > 0) & (vs <= 0)):
         j = int(np.flatnonzero((dsv > 0) & (vs <= 0))[0])
         raise _Infeasible(f"{robot.name} cannot move at ({S.xy[j, 0]:.3f}, {S.xy[j, 1]:.3f}) m: "
-                          f"{names_X[int(np.argmin(_limit_stack(robot, route, W, S)[j]))]} allows no speed there",
+                          f"{names_X[int(np.argmin(M[j]))]} allows no speed there",
                           wp_at(j))
     dt = np.where(dsv > 0, 2 * dsv / np.where(vs > 0, vs, 1.0), 0.0)
 
     # -- what limits each interval -------------------------------------------------------
-    limit_names = _interval_limits(robot, route, W, S, x, X, names_X)
+    limit_names = _interval_limits(robot, W, S, x, M, names_X)
 
     # -- assemble the motion against time ----------------------------------------------------
     plan = Plan(robot.name, motion, True, min_radius=min_r)
@@ -589,30 +590,39 @@ def _plan(robot, route, motion, ds, steer, start_heading) -> Plan:
     first = [ev for ev in events[0] if ev[0] == "resteer"]
     T.rest(S.xy[0], theta[0] - turn_start, 0, first[0][3] if first else xi[0])
     peak = np.zeros(len(W.idx))
-    turn_time = resteer_time = 0.0
+    totals = {"turn": 0.0, "resteer": 0.0}
     stops = []
     legs = {}
-    for sidx, (i0, i1) in enumerate(segments):
+
+    def stop_at(evs):
+        """Carry out the stop events ``evs``; returns the stop's summary or None."""
+        nonlocal peak
         stop = None
-        for ev in events[sidx]:
+        for ev in evs:
             if ev[0] == "resteer":
                 _, dur, wheel, hint, wp = ev
-                if dur > 0:
-                    T.wait(dur, hint)
-                    resteer_time += dur
-                    stop = stop or {"waypoint": wp, "turn": 0.0, "turn_time": 0.0, "resteer_time": 0.0, "limit": ""}
-                    stop["resteer_time"] += dur
-                    stop["limit"] = (stop["limit"] + "; " if stop["limit"] else "") + f"re-steer: {wheel} max_steer_rate"
+                if dur <= 0:
+                    continue
+                T.wait(dur, hint)
+                totals["resteer"] += dur
+                what = f"re-steer: {wheel} max_steer_rate"
             else:
                 _, delta, wp = ev
-                dur, lim, wpk = _turn(robot, turn_J, names, delta)
+                dur, what, wpk = _turn(robot, turn_J, names, delta)
                 peak = np.maximum(peak, wpk)
                 T.turn(delta, dur, turn_xi, _turn_limits(turn_J, a))
-                turn_time += dur
-                stop = stop or {"waypoint": wp, "turn": 0.0, "turn_time": 0.0, "resteer_time": 0.0, "limit": ""}
+                totals["turn"] += dur
+            stop = stop or {"waypoint": wp, "turn": 0.0, "turn_time": 0.0, "resteer_time": 0.0, "limit": ""}
+            if ev[0] == "resteer":
+                stop["resteer_time"] += dur
+            else:
                 stop["turn"] += delta
                 stop["turn_time"] += dur
-                stop["limit"] = (stop["limit"] + "; " if stop["limit"] else "") + lim
+            stop["limit"] = (stop["limit"] + "; " if stop["limit"] else "") + what
+        return stop
+
+    for sidx, (i0, i1) in enumerate(segments):
+        stop = stop_at(events[sidx])
         if stop is not None:
             stops.append(stop)
         elif sidx > 0:
@@ -627,28 +637,10 @@ def _plan(robot, route, motion, ds, steer, start_heading) -> Plan:
             L["time"] += dt[j]
             L["length"] += dsv[j]
             L["by"][limit_names[j]] = L["by"].get(limit_names[j], 0.0) + dt[j]
-    stop = None
-    for ev in tail:
-        if ev[0] == "resteer":
-            _, dur, wheel, hint, wp = ev
-            if dur > 0:
-                T.wait(dur, hint)
-                resteer_time += dur
-                stop = stop or {"waypoint": wp, "turn": 0.0, "turn_time": 0.0, "resteer_time": 0.0, "limit": ""}
-                stop["resteer_time"] += dur
-                stop["limit"] = (stop["limit"] + "; " if stop["limit"] else "") + f"re-steer: {wheel} max_steer_rate"
-        else:
-            _, delta, wp = ev
-            dur, lim, wpk = _turn(robot, turn_J, names, delta)
-            peak = np.maximum(peak, wpk)
-            T.turn(delta, dur, turn_xi, _turn_limits(turn_J, a))
-            turn_time += dur
-            stop = stop or {"waypoint": wp, "turn": 0.0, "turn_time": 0.0, "resteer_time": 0.0, "limit": ""}
-            stop["turn"] += delta
-            stop["turn_time"] += dur
-            stop["limit"] = (stop["limit"] + "; " if stop["limit"] else "") + lim
+    stop = stop_at(tail)
     if stop is not None:
         stops.append(stop)
+    turn_time, resteer_time = totals["turn"], totals["resteer"]
     T.finish()
     plan.t, plan.pose, plan.hint, plan.phase, plan.speed, plan.index = T.arrays()
     plan.path, plan.profile = S, v
@@ -697,13 +689,9 @@ def _fit_limits(robot, seg_beta, cur, S, i0, wp_at, min_r):
     return out
 
 
-def _limit_stack(robot, route, W, S):
-    """Velocity-squared limits (m, c), one column per constraint (see _velocity_limits)."""
-    return _velocity_limits(robot, route, W, S, stack=True)[0]
-
-
-def _velocity_limits(robot, route, W, S, stack=False):
-    """X (m,) the largest x = v^2 each sample allows, and the constraint names (c,)."""
+def _velocity_limits(robot, route, W, S):
+    """(M, names): the largest x = v^2 each constraint allows at each sample, M (m, c), and the
+    constraints' names (c,)."""
     a = robot.arrays
     names = [w.name for w in robot.wheels]
     m = len(S)
@@ -748,10 +736,7 @@ def _velocity_limits(robot, route, W, S, stack=False):
     if not cols:
         cols.append(np.full(m, np.inf))
         labels.append("nothing")
-    M = np.stack(cols, axis=1)
-    if stack:
-        return M, labels
-    return np.min(M, axis=1), labels
+    return np.stack(cols, axis=1), labels
 
 
 def _topp(s, X, J, dJ, alpha):
@@ -815,11 +800,12 @@ def _topp(s, X, J, dJ, alpha):
     return np.array(x)
 
 
-def _interval_limits(robot, route, W, S, x, X, names_X):
-    """Name of the constraint that binds over each interval j -> j+1 (m - 1,)."""
+def _interval_limits(robot, W, S, x, M, names_X):
+    """Name of the constraint that binds over each interval j -> j+1 (m - 1,); ``M`` from
+    :func:`_velocity_limits`."""
     a = robot.arrays
     names = [w.name for w in robot.wheels]
-    M, _ = _velocity_limits(robot, route, W, S, stack=True)
+    X = np.min(M, axis=1)
     which = np.argmin(M, axis=1)
     out = []
     alpha = a.max_spin_accel[W.idx]
