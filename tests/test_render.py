@@ -468,3 +468,31 @@ def test_grid_labels_whole_signed_and_clear_of_lines_and_insets():
         compass_band += any(t + h - 78 <= v <= t + h - 12 for v in v_lines)
     assert crossed >= 1            # axle lines do run right up to some labels (and not through them)
     assert compass_band >= 1       # some labelled y lines pass behind the compass inset (and are not labelled there)
+def test_route_waypoints_and_target_point_are_drawn():
+    # a planned L route: grey band along it, waypoint circles, the target at the plan's pose at t
+    from sim.engine.record import ROW, StepResult
+    from sim.model.route import Route
+    from sim.theory.speedplan import plan_route
+
+    rb = robot("tote-mecanum")
+    rt = Route("l", [[0, 0], [2, 0], [2, 1.5]], (None, None, None))
+    plan = plan_route(rb, rt)
+    k = int(np.flatnonzero(plan.pose[:, 0] > 1.0)[0])        # a plan row on the first leg
+    rd = Renderer(rb, (W, H))
+    rd.set_route(plan.path.xy, rt.waypoints, plan)
+    rd.view = View((PANEL_W, 0, W - PANEL_W, H), center=(1.0, 0.75), scale=200.0)
+    row = Simulator(rb, 0.01, start=(0.2, 1.2, 0.0)).step()
+    vals = row.values.copy()
+    vals[ROW["t"]] = plan.t[k]                              # the same row, at the plan's time
+    row = StepResult(vals, row.n)
+    img = drawn(rd, row)
+    tx, ty = plan.pose[k, :2]
+    assert colour_near(img, *hand_pixel(tx, ty, (1.0, 0.75), 200.0), PALETTE["target"])
+    assert colour_near(img, *hand_pixel(2.0, 0.75, (1.0, 0.75), 200.0), PALETTE["route"])   # second leg
+    u, v = hand_pixel(2.0, 1.5, (1.0, 0.75), 200.0)
+    assert colour_near(img, u, v - 6, PALETTE["ink"]) and colour_near(img, u, v, PALETTE["panel"])
+    # the view fits the route, not just the poses seen
+    rd2 = Renderer(rb, (W, H))
+    rd2.set_route(plan.path.xy, rt.waypoints, plan)
+    rd2.fit(None)
+    assert rd2.view.inside(*rd2.view.to_screen(2.0, 1.5)) and rd2.view.inside(*rd2.view.to_screen(0.0, 0.0))

@@ -21,7 +21,8 @@ times; the table shows the median.  Cases:
    naive loop;
 8. the first call in a fresh process: import, load the base, one stretch, with
    numba's on-disk cache warm and cold (an empty cache folder), against the
-   same work once everything is loaded.
+   same work once everything is loaded;
+9. ``trundle route`` on the bundled ward corridor route with three bases, whole process.
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.
@@ -277,6 +278,12 @@ def main(argv=None) -> int:
             rows.append({"case": "8", "label": "first stretch, fresh process, cache warm", "steps": 1000,
                          "wall_s": w, "steps_per_s": float("nan"), "peak_mb": float("nan"), "steady": st,
                          "cold": cold["wall"], "imports": med([r["imports"] for r in warm])})
+        if "9" not in skip:
+            cmd = [sys.executable, "-m", "sim", "route", os.path.join(ROOT, "scenarios", "routes", "ward-corridor.yaml")]
+            cmd += [os.path.join(ROBOTS, f"{b}.yaml") for b in ("ward-cart", "tote-mecanum", "quad-steer")]
+            wall = med([_timed(cmd) for _ in range(max(3, args.repeat))])
+            rows.append({"case": "9", "label": "trundle route, demo route, 3 bases (process)",
+                         "steps": 0, "wall_s": wall, "steps_per_s": float("nan"), "peak_mb": float("nan")})
         if "6" not in skip:
             r = _sub("6", folder)
             rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],

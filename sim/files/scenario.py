@@ -21,15 +21,19 @@ from sim.files.yamlread import load_file
 
 MAX_STEPS = 10 ** 9
 _KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "skid", "script",
-         "commands", "checks", "odometry", "description")
+         "commands", "route", "controller", "checks", "odometry", "description")
+CHECK_KINDS = ("pose", "slip_below", "slip_above", "wheel", "odometry_error_below", "arrive_within",
+               "tracking_error_below")
 
 
 @dataclass(frozen=True)
 class Command:
     """One script entry, held from ``at`` (s) until the next.
 
-    kind : ``twist`` (value (vx, vy, omega)), ``wheels`` (value {name: {"spin"?, "steer"?}})
-    or ``stop``.
+    kind : ``twist`` (value (vx, vy, omega), body frame), ``world_twist`` (value (vx, vy,
+    omega), world frame: turned into the body frame every step), ``wheels`` (value
+    {name: {"spin"?, "steer"?}}), ``stop``, or ``goto`` (value (x, y, theta or None): plan
+    a route there from wherever the base is and track it).
     """
 
     at: float
@@ -44,7 +48,9 @@ class Check:
 
     kind : ``pose`` (at, pose, tolerance), ``slip_below`` / ``slip_above``
     (threshold m/s, over the run or at ``at``), ``wheel`` (at, name, steer
-    and/or spin with tolerances), ``odometry_error_below`` (position m, heading rad).
+    and/or spin with tolerances), ``odometry_error_below`` (position m, heading rad),
+    ``arrive_within`` (time s, tolerance (position m, heading rad) or None: the route's),
+    ``tracking_error_below`` (threshold m, after s).
     """
 
     kind: str
@@ -73,10 +79,19 @@ class Scenario:
     description: str = ""
     skid: bool = True
     warnings: tuple = ()
+    route: object = None
+    plan: object = None
+    controller: tuple | None = None
+    headroom: float = 0.0
 
     @property
     def steps(self) -> int:
         return int(round(self.duration / self.step)) + 1
+
+    @property
+    def closed_loop(self) -> bool:
+        """Whether a controller drives the base (a route, goto entries or world-frame twists)."""
+        return self.route is not None or any(c.kind in ("goto", "world_twist") for c in self.script)
 
 
 def _hash_bytes(data: bytes) -> str:
@@ -128,19 +143,37 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         if tol <= 0:
             raise at("align_tolerance").error("must be > 0")
     skid = F.boolean(data["skid"], at("skid")) if "skid" in data else True
-    if "script" in data and "commands" in data:
-        raise where.error("give either 'script' or 'commands' (a CSV command log), not both")
+    given = [k for k in ("script", "commands", "route") if k in data]
+    if len(given) > 1:
+        raise where.error(f"give either 'script' or 'commands' (a CSV command log) or 'route', not "
+                          f"{' and '.join(repr(k) for k in given)}")
+    route = plan = None
+    controller, headroom = None, 0.0
+    has_goto = "script" in data and isinstance(data["script"], list) and any(
+        isinstance(e, dict) and "goto" in e for e in data["script"])
+    if "controller" in data:
+        if "route" not in data and not has_goto:
+            raise at("controller").error("controller settings need a 'route' or 'goto' entries in the script")
+        controller, headroom = _controller(data["controller"], at("controller"), robot)
     if "commands" in data:
         script = _commands_csv(data["commands"], at("commands"), base_dir, robot)
     elif "script" in data:
         script = _script(data["script"], at("script"), robot)
+    elif "route" in data:
+        script = []
+        route, plan, start = _route(data["route"], at("route"), base_dir, robot,
+                                    start if "start" in data else None, headroom)
     else:
-        raise where.error("missing 'script' (or 'commands', a CSV command log)")
+        raise where.error("missing 'script' (or 'commands', a CSV command log, or 'route')")
     for c in script:
         if c.at > duration + 1e-12:
             raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
                              f"({duration:g} s); shorten the script or lengthen 'duration'")
     checks = _checks(data.get("checks", []), at("checks"), robot, duration) if "checks" in data else ()
+    for c in checks:
+        if c.kind in ("arrive_within", "tracking_error_below") and route is None \
+                and not any(e.kind == "goto" for e in script):
+            raise InputError(where.source, c.line, f"{c.kind} needs a 'route' or 'goto' entries in the script")
     odometry = None
     if "odometry" in data:
         from sim.files.odometryfile import odometry_from_data  # optional feature, own module
@@ -150,7 +183,58 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         raise at("description").error("expected text")
     warnings = tuple(dict.fromkeys(robot.warnings + tuple(where.notes)))
     return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
-                    source, robot_hash, scen_hash, odometry, desc, skid, warnings)
+                    source, robot_hash, scen_hash, odometry, desc, skid, warnings, route, plan, controller, headroom)
+
+
+def _route(value, where, base_dir, robot, start, headroom):
+    """(Route, Plan, start pose) for the scenario's ``route`` (a file or an inline mapping).
+
+    The base starts at the route's start unless the scenario gives ``start``; a route the
+    base cannot drive is refused here, with the planner's reason.
+    """
+    from sim.files.routefile import load_route, route_from_data
+    from sim.theory.speedplan import plan_route
+
+    if isinstance(value, str):
+        path = value if os.path.isabs(value) else os.path.join(base_dir, value)
+        if not os.path.isfile(path):
+            raise where.error(f"route file '{value}' not found (looked for {os.path.normpath(path)})")
+        route = load_route(os.path.relpath(path) if not os.path.isabs(value) else path)
+    elif isinstance(value, dict):
+        route = route_from_data(value, where.source, where)
+    else:
+        raise where.error(f"expected a route file path or an inline route mapping, got {F.describe(value)}")
+    plan = plan_route(robot, route, start_heading=None if start is None else start[2], headroom=headroom)
+    if not plan.feasible:
+        line = route.lines[plan.waypoint] if plan.waypoint is not None and route.lines else where.line
+        src = route.source if plan.waypoint is not None and route.lines else where.source
+        raise InputError(src, line, f"{robot.name} cannot drive route '{route.name}': {plan.reason}")
+    if start is None:
+        start = tuple(float(v) for v in plan.start_pose)
+    return route, plan, start
+
+
+def _controller(value, where, robot):
+    """(gains, headroom): gains as a tuple in the order of :data:`sim.engine.tracking.GAIN_NAMES`
+    for the base's law; headroom the fraction of the actuator limits the plan leaves to feedback."""
+    from sim.engine.tracking import DEFAULT_GAINS, GAIN_NAMES, GAIN_UNITS
+    from sim.theory.speedplan import motion_of
+
+    motion = motion_of(robot)
+    if motion.law == "none":
+        raise where.error(f"{robot.name} cannot follow routes: {motion.reason}")
+    m = F.expect_map(value, where, "a mapping of gains")
+    names = GAIN_NAMES[motion.law]
+    F.check_keys(m, names + ("headroom",), where)
+    gains = list(DEFAULT_GAINS[motion.law])
+    for i, k in enumerate(names):
+        if k in m:
+            gains[i] = F.number(m[k], where.at(m, k), nonnegative=True, unit=GAIN_UNITS[k])
+    headroom = 0.0
+    if "headroom" in m:
+        headroom = F.number(m["headroom"], where.at(m, "headroom"), minimum=0.0, maximum=0.5,
+                            unit="fraction of max_spin, max_spin_accel and max_steer_rate")
+    return tuple(gains), headroom
 
 
 def _start_steer(robot, value, where):
@@ -195,18 +279,21 @@ def _script(items, where, robot):
     out, last = [], -math.inf
     for i, item in enumerate(items):
         w = where.at(items, i)
-        item = F.expect_map(item, w, "a command {at, twist | wheels | stop}")
-        F.check_keys(item, ("at", "twist", "wheels", "stop"), w, required=("at",))
+        item = F.expect_map(item, w, "a command {at, twist | wheels | stop | goto}")
+        F.check_keys(item, ("at", "twist", "wheels", "stop", "goto"), w, required=("at",))
         t = _time(item["at"], w.at(item, "at"))
         if t <= last:
             raise w.at(item, "at").error(f"'at' must increase down the script: {t:g} s follows {last:g} s")
         last = t
-        kinds = [k for k in ("twist", "wheels", "stop") if k in item]
+        kinds = [k for k in ("twist", "wheels", "stop", "goto") if k in item]
         if len(kinds) != 1:
-            raise w.error("each entry needs exactly one of twist, wheels, stop")
+            raise w.error("each entry needs exactly one of twist, wheels, stop, goto")
         kind = kinds[0]
         if kind == "twist":
-            out.append(Command(t, "twist", _twist(item["twist"], w.at(item, "twist")), w.line))
+            frame, tw = _twist(item["twist"], w.at(item, "twist"))
+            out.append(Command(t, "world_twist" if frame == "world" else "twist", tw, w.line))
+        elif kind == "goto":
+            out.append(Command(t, "goto", _goto(item["goto"], w.at(item, "goto"), robot), w.line))
         elif kind == "wheels":
             out.append(Command(t, "wheels", _wheels(item["wheels"], w.at(item, "wheels"), robot), w.line))
         else:
@@ -217,11 +304,26 @@ def _script(items, where, robot):
 
 
 def _twist(value, where):
-    m = F.expect_map(value, where, "a twist {vx, vy, omega}")
-    F.check_keys(m, ("vx", "vy", "omega"), where)
-    return (F.number(m.get("vx", 0.0), where.at(m, "vx"), unit="m/s"),
-            F.number(m.get("vy", 0.0), where.at(m, "vy"), unit="m/s"),
-            F.angle(m.get("omega", 0.0), where.at(m, "omega"), rate=True))
+    """(frame, (vx, vy, omega)): frame ``body`` (default) or ``world``."""
+    m = F.expect_map(value, where, "a twist {vx, vy, omega, frame}")
+    F.check_keys(m, ("vx", "vy", "omega", "frame"), where)
+    frame = F.choice(m["frame"], ("body", "world"), where.at(m, "frame")) if "frame" in m else "body"
+    return frame, (F.number(m.get("vx", 0.0), where.at(m, "vx"), unit="m/s"),
+                   F.number(m.get("vy", 0.0), where.at(m, "vy"), unit="m/s"),
+                   F.angle(m.get("omega", 0.0), where.at(m, "omega"), rate=True))
+
+
+def _goto(value, where, robot):
+    """(x, y, theta or None): a goal pose in the world frame."""
+    from sim.theory.speedplan import motion_of
+
+    m = F.expect_map(value, where, "a goal {x, y, theta}")
+    F.check_keys(m, ("x", "y", "theta"), where, required=("x", "y"))
+    motion = motion_of(robot)
+    if motion.kind == "none":
+        raise where.error(f"{robot.name} cannot drive to a goal: {motion.reason}")
+    return (F.number(m["x"], where.at(m, "x"), unit="m"), F.number(m["y"], where.at(m, "y"), unit="m"),
+            F.angle(m["theta"], where.at(m, "theta")) if "theta" in m else None)
 
 
 def _wheels(value, where, robot):
@@ -321,7 +423,7 @@ def _check_time(item, w, duration):
 def _checks(items, where, robot, duration):
     items = F.expect_list(items, where, "a list of checks")
     out = []
-    kinds = ("pose", "slip_below", "slip_above", "wheel", "odometry_error_below")
+    kinds = CHECK_KINDS
     for i, item in enumerate(items):
         w = where.at(items, i)
         item = F.expect_map(item, w, "a check mapping")
@@ -364,6 +466,20 @@ def _checks(items, where, robot, duration):
                 raise w.error("a wheel check needs steer and/or spin")
             p["tolerance"] = _tolerance(item["tolerance"], w.at(item, "tolerance"), ("steer", "spin"))
             out.append(Check("wheel", t, p, w.line))
+        elif kind == "arrive_within":
+            F.check_keys(item, (kind, "tolerance"), w)
+            t = F.number(item[kind], w.at(item, kind), positive=True, unit="s")
+            tol = None
+            if "tolerance" in item:
+                from sim.files.routefile import tolerance
+                from sim.model.route import DEFAULT_TOLERANCE
+                tol = tolerance(item["tolerance"], w.at(item, "tolerance"), DEFAULT_TOLERANCE)
+            out.append(Check(kind, None, {"time": t, "tolerance": tol}, w.line))
+        elif kind == "tracking_error_below":
+            F.check_keys(item, (kind, "after"), w)
+            thr = F.number(item[kind], w.at(item, kind), positive=True, unit="m")
+            after = _time(item["after"], w.at(item, "after")) if "after" in item else 0.0
+            out.append(Check(kind, None, {"threshold": thr, "after": after}, w.line))
         else:
             F.check_keys(item, (kind,), w)
             tol = _tolerance(item[kind], w.at(item, kind), ("position", "heading"))

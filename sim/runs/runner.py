@@ -52,6 +52,7 @@ class RunResult:
     odometry: dict | None = None
     decisions: dict = field(default_factory=dict)
     notes: list = field(default_factory=list)
+    tracking: dict | None = None
 
     @property
     def passed(self) -> bool:
@@ -131,6 +132,27 @@ class _Checks:
             ok &= err <= lim
             parts.append(f"spin {row.spin[i]:.4f} rad/s vs {p['spin']:.4f}: off {err:.3g}, allowed {lim:g}")
         return CheckResult(bool(ok), f"wheel {p['wheel']} at t={c.at:g} s: " + "; ".join(parts), c.line)
+
+    def _arrive_within(self, c, row, res, _):
+        tr = res.tracking or {}
+        tol = c.params["tolerance"] or tr.get("route_tolerance")
+        when = (tr.get("arrival") or {}).get(tuple(tol))
+        lim = c.params["time"]
+        within = f"within {tol[0]:g} m and {math.degrees(tol[1]):g} deg of the end pose"
+        if when is None:
+            return CheckResult(False, f"arrive within {lim:g} s: never settled {within}", c.line)
+        plan = tr.get("plan_time")
+        planned = f" (planned {plan:.3f} s)" if plan is not None else ""
+        return CheckResult(bool(when <= lim), f"arrive within {lim:g} s: arrived at t={when:g} s{planned}, "
+                           f"{within}", c.line)
+
+    def _tracking_error_below(self, c, row, res, _):
+        thr, after = c.params["threshold"], c.params["after"]
+        peak, when = ((res.tracking or {}).get("peak_error") or {}).get(after, (0.0, None))
+        since = f" after t={after:g} s" if after else ""
+        at = f" at t={when:g} s" if when is not None else ""
+        return CheckResult(bool(peak < thr), f"tracking error below {thr:g} m{since}: peak {peak:.3g} m{at}",
+                           c.line)
 
     def _odometry_error_below(self, c, row, res, odo):
         tol = c.params["tolerance"]
@@ -227,8 +249,14 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     if scen.odometry is not None:
         from sim.odometry.encoders import Odometer
         odo = Odometer(scen.odometry, scen.robot, scen.step, scen.start)
-    blocks = _blocks(scen, odo, on_row)
-    extra_cols = tuple(odo.columns) if odo else ()
+    loop = None
+    if scen.closed_loop:
+        from sim.runs.closedloop import ClosedLoop  # a controller computes the twist every step
+        loop = ClosedLoop(scen, entry_steps(scen.script, scen.step), apply_command, simulator_for(scen), odo, on_row)
+        blocks = loop.blocks()
+    else:
+        blocks = _blocks(scen, odo, on_row)
+    extra_cols = (tuple(odo.columns) if odo else ()) + (tuple(loop.columns) if loop else ())
     header = columns(scen.robot, extra_cols)
     writer = TraceWriter(csv, header) if csv else None
     kept = [] if keep else None
@@ -265,6 +293,8 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     if odo:
         res.odometry = odo.summary()
     res.decisions, res.notes = decisions.as_dict(), decisions.lines()
+    if loop:
+        res.tracking = loop.summary()
     res.checks = checks.evaluate(res, res.odometry)
     if kept is not None:
         arr = np.vstack(kept) if kept else np.zeros((0, len(header)))
@@ -321,6 +351,16 @@ def summary_text(res: RunResult) -> str:
         lines.append(f"odometry  final error {o['final_position_error']:.4g} m, "
                      f"{math.degrees(o['final_heading_error']):.4g} deg; peak {o['peak_position_error']:.4g} m, "
                      f"{math.degrees(o['peak_heading_error']):.4g} deg")
+    if res.tracking:
+        tr = res.tracking
+        peak, when = tr["peak_error"][0.0]
+        lines.append(f"tracking  peak error {peak:.4g} m" + (f" at t={when:g} s" if when is not None else ""))
+        tol = tr["route_tolerance"]
+        arr = tr["arrival"].get(tuple(tol))
+        if tr.get("plan_time") is not None:
+            lines.append(f"route     planned {tr['plan_time']:.3f} s; "
+                         + (f"arrived at t={arr:g} s" if arr is not None else "not settled at the end pose")
+                         + f" (within {tol[0]:g} m, {math.degrees(tol[1]):g} deg)")
     for c in res.checks:
         lines.append(f"{'PASS' if c.passed else 'FAIL'}      {c.text}")
     if not res.checks:

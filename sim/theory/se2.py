@@ -80,3 +80,20 @@ def integrate(pose0, inc) -> np.ndarray:
     out = np.empty_like(inc)
     integrate_into(np.asarray(pose0, dtype=float), inc, out)
     return out
+
+
+def body_twist_for_world(theta: float, world_twist, dt: float) -> np.ndarray:
+    """Body twist (3,) that, held for ``dt`` s from heading ``theta`` (rad), moves the body
+    origin by exactly ``(vx, vy) dt`` in the world frame while turning by ``omega dt``.
+
+    ``world_twist`` is ``(vx, vy, omega)`` with the velocity in the world frame (m/s,
+    rad/s).  Inverts :func:`exp_increment`: the increment is ``V (v_body dt)`` with
+    ``V = [[sinc, -cosc], [cosc, sinc]]`` of ``phi = omega dt``.
+    """
+    vx, vy, w = (float(v) for v in world_twist)
+    c, s = math.cos(theta), math.sin(theta)
+    a, b = c * vx + s * vy, -s * vx + c * vy          # world velocity in the start body frame
+    sinc, cosc, _ = exp_increment(1.0, 0.0, w, float(dt))   # V's first column (unit speed, dt = 1 s scale)
+    sinc, cosc = sinc / dt, cosc / dt
+    det = sinc * sinc + cosc * cosc
+    return np.array([(sinc * a + cosc * b) / det, (-cosc * a + sinc * b) / det, w])

@@ -81,6 +81,10 @@ def view_run(scen, csv=None, every=1, window=False, png=None, frames=None, fps=3
     name = os.path.basename(scen.source)
     rd = render.Renderer(scen.robot, size, name, align=scen.align, step=scen.step,
                          align_tolerance=scen.align_tolerance)
+    if scen.plan is not None:
+        rd.set_route(scen.plan.path.xy, scen.route.waypoints, scen.plan)
+    elif any(c.kind == "goto" for c in scen.script):
+        rd.set_route(None, [c.value[:2] for c in scen.script if c.kind == "goto"])
     win = None
     try:
         full = None

@@ -50,6 +50,8 @@ PALETTE = {
     "axle": (86, 180, 233),           # Okabe-Ito sky blue: axle (no-slide) lines
     "icr": (204, 121, 167),           # Okabe-Ito reddish purple
     "path": (0, 158, 115),            # Okabe-Ito bluish green
+    "route": (178, 178, 178),         # grey band: the planned route
+    "target": (240, 228, 66),         # Okabe-Ito yellow (black outline): the controller's target point
     "roller": (150, 170, 195),
     "ball": (200, 200, 200),
 }
@@ -274,7 +276,31 @@ class Renderer:
         self._fonts = {}
         self._surface = None
         self.texts, self.reserved = [], []
+        self.route_xy = None
+        self.waypoints = None
+        self.plan = None
         self.reset()
+
+    def set_route(self, path_xy=None, waypoints=None, plan=None) -> None:
+        """Draw a route under the base: its path (P, 2) m as a grey band, its waypoints (k, 2) m
+        as white circles and, given the plan being tracked (:class:`sim.theory.speedplan.Plan`),
+        the controller's target point at each row's time as a yellow diamond."""
+        self.route_xy = None if path_xy is None else np.asarray(path_xy, dtype=float)
+        self.waypoints = None if waypoints is None else np.asarray(waypoints, dtype=float).reshape(-1, 2)
+        self.plan = plan
+
+    def target(self, t):
+        """World (x, y) m of the tracked point's reference at time t (s), or None without a plan."""
+        if self.plan is None:
+            return None
+        from sim.engine.tracking import reference
+
+        p = self.plan
+        out = np.empty(3)
+        reference(p.t, p.pose, p.speed, float(t), out)
+        gx, gy, _ = p.motion.guide
+        c, s = math.cos(out[2]), math.sin(out[2])
+        return out[0] + c * gx - s * gy, out[1] + s * gx + c * gy
 
     # -- state --------------------------------------------------------------
     def reset(self) -> None:
@@ -320,6 +346,11 @@ class Renderer:
     def fit(self, bounds=None) -> None:
         """Fit the view to ``bounds`` (xmin, xmax, ymin, ymax) m, or to all poses seen."""
         b = bounds if bounds is not None else self.bounds
+        pts = [p for p in (self.route_xy, self.waypoints) if p is not None and len(p)]
+        if pts:
+            q = np.vstack(pts)
+            rb = (float(q[:, 0].min()), float(q[:, 0].max()), float(q[:, 1].min()), float(q[:, 1].max()))
+            b = rb if b is None else (min(b[0], rb[0]), max(b[1], rb[1]), min(b[2], rb[2]), max(b[3], rb[3]))
         if b is None:
             b = (0.0, 0.0, 0.0, 0.0)
         r = self._reach * 1.15
@@ -405,6 +436,7 @@ class Renderer:
         surf.fill(PALETTE["paper"])
         surf.set_clip(pg.Rect(self.view.rect))
         labels = self._grid(surf)
+        self._route(surf)
         self._ghosts(surf)
         self._footprint(surf, pose, PALETTE["body_fill"], None, 2)
         self._path(surf)                    # over the fill: the path runs up to the body origin
@@ -414,14 +446,37 @@ class Renderer:
         self._centre(surf, pose)
         self._skids(surf, row)
         self._icr(surf, row)
+        tgt = self.target(row.t)
+        if tgt is not None:
+            u, v = (float(c) for c in self.view.to_screen(tgt[0], tgt[1]))
+            diamond = self._ipts([(u, v - 8), (u + 8, v), (u, v + 8), (u - 8, v)])
+            pg.draw.polygon(surf, PALETTE["target"], diamond)
+            pg.draw.polygon(surf, PALETTE["ink"], diamond, 2)
         self._scale_bar(surf)
         self._compass(surf)
         if status is not None:
             self._status(surf, status)
         self._grid_labels(surf, labels)     # last: on their own background, clear of the insets
         surf.set_clip(None)
+        if self.route_xy is not None or self.waypoints is not None:
+            lines = list(lines) + [("route", "grey; waypoints: circles"),
+                                   ("", "target: yellow diamond" if self.plan is not None else "")]
         self._panel(surf, row, lines, list(notes))
         return surf
+
+    def _route(self, surf):
+        pg = _pg()
+        if self.route_xy is not None and len(self.route_xy) >= 2:
+            u, v = self.view.to_screen(self.route_xy[:, 0], self.route_xy[:, 1])
+            pts = self._ipts(np.stack([u, v], axis=1))
+            keep = [pts[0]] + [p for a, p in zip(pts, pts[1:]) if p != a]
+            if len(keep) >= 2:
+                pg.draw.lines(surf, PALETTE["route"], False, keep, 9)
+        if self.waypoints is not None:
+            u, v = self.view.to_screen(self.waypoints[:, 0], self.waypoints[:, 1])
+            for p in self._ipts(np.stack([u, v], axis=1)):
+                pg.draw.circle(surf, PALETTE["panel"], p, 6)
+                pg.draw.circle(surf, PALETTE["ink"], p, 6, 2)
 
     def _grid(self, surf):
         """Grid lines; returns the labels of the major ones, ``[(pixel, value m, anchor)]``."""

@@ -1,0 +1,219 @@
+"""Closed-loop runs: a tracking controller computes the twist command every step.
+
+Used by :func:`sim.runs.runner.run_scenario` for scenarios with a ``route``, ``goto``
+entries or world-frame twists (``Scenario.closed_loop``).  The run yields the same
+blocks of rows as the open-loop engines, plus four columns (:data:`COLUMNS`): the
+reference pose ``ref_x, ref_y, ref_theta`` (world, m, rad; blank while no controller
+drives) and ``track_error``, the tracked point's distance from the planned path (m).
+
+The stepping itself is the small loop in :meth:`ClosedLoop._steps`: per step, the
+motion already under way (:func:`sim.engine.tracking.motion_now`), the control law
+(:func:`sim.engine.tracking.control`, compiled) and one :meth:`Simulator.step`.  It is
+kept apart so that the compiled stretch of the engine can take it over.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from sim.engine.record import Block
+from sim.engine.tracking import DEFAULT_GAINS, LAWS, OUT_SIZE, control, motion_now
+from sim.errors import InputError
+from sim.model.route import DEFAULT_TOLERANCE, Route
+from sim.theory.kinematics import twist_scale
+from sim.theory.se2 import body_twist_for_world, wrap
+from sim.theory.speedplan import motion_of, plan_route, plan_turn
+
+COLUMNS = ("ref_x", "ref_y", "ref_theta", "track_error")
+
+
+class _Tracking:
+    """The plan being followed, as the arrays the compiled law takes."""
+
+    def __init__(self, plan, t0, motion, gains, robot):
+        self.t0 = t0
+        self.plan = plan
+        self.law = LAWS[motion.law]
+        self.arrays = (np.ascontiguousarray(plan.t), np.ascontiguousarray(plan.pose),
+                       np.ascontiguousarray(plan.speed), np.ascontiguousarray(plan.hint), np.ascontiguousarray(plan.index),
+                       np.ascontiguousarray(plan.path.xy))
+        self.frame = np.array(motion.guide, dtype=float)
+        self.gains = np.array(gains, dtype=float)
+        self.size = float(robot.size)
+        self.steered = bool(motion.steered)
+        self.goal = np.array(plan.end_pose, dtype=float)
+
+
+def lead_of(robot) -> bool:
+    """Whether a command shapes the motion only from the next row: some drive has a
+    ``max_spin_accel`` or some steered wheel a ``max_steer_rate`` (the engine ramps them
+    over the step; unlimited actuators are at their command at once)."""
+    a = robot.arrays
+    st = a.is_("steered")
+    return bool(np.any(np.isfinite(a.max_spin_accel[a.driven])) or np.any(np.isfinite(a.max_steer_rate[st])))
+
+
+class ClosedLoop:
+    """Runs ``scen`` under control on the simulator ``sim`` (at the scenario's start).
+    ``entry_steps`` (list) is the step at which each script entry takes effect and
+    ``apply(sim, command)`` applies an open-loop entry (both from :mod:`sim.runs.runner`).
+    ``odo``: an :class:`~sim.odometry.encoders.Odometer` or None; ``on_row``: called with
+    every :class:`~sim.engine.record.StepResult`.
+
+    After the run, :meth:`summary` gives the tracking figures the checks use.
+    """
+
+    columns = COLUMNS
+
+    def __init__(self, scen, entry_steps, apply, sim, odo=None, on_row=None):
+        self.scen = scen
+        self.sim = sim
+        self.ks = list(entry_steps)
+        self.apply = apply
+        self.odo = odo
+        self.on_row = on_row
+        self.motion = motion_of(scen.robot)
+        self.gains = scen.controller if scen.controller is not None else DEFAULT_GAINS.get(self.motion.law, ())
+        route_tol = scen.route.tolerance if scen.route is not None else DEFAULT_TOLERANCE
+        self.tolerances = sorted({tuple(c.params["tolerance"] or route_tol) for c in scen.checks
+                                  if c.kind == "arrive_within"} | {tuple(route_tol)})
+        self.afters = sorted({c.params["after"] for c in scen.checks if c.kind == "tracking_error_below"} | {0.0})
+        self.inside = {tol: None for tol in self.tolerances}     # time the base last came within tolerance
+        self.peak = {a: (0.0, None) for a in self.afters}         # (m, s) peak path error after a
+        self.last_goto = max((i for i, c in enumerate(scen.script) if c.kind == "goto"), default=None)
+        self.final = scen.route is not None                       # tracking the run's last plan
+        self.plan_time = scen.plan.time if scen.plan is not None else None
+        self.track = None
+        self.world = None
+        self.lead = lead_of(scen.robot)
+        n = len(scen.robot.wheels)
+        self._fk = (scen.robot.packed, twist_scale(scen.robot), np.zeros((2 * n, 3)), np.zeros((3, 2 * n)),
+                    np.zeros((2, 2 * n), dtype=np.int64), np.zeros((2 * n, 3)), np.zeros(2 * n))
+
+    # -- script ------------------------------------------------------------------------
+    def _command(self, sim, i, cmd):
+        if cmd.kind == "goto":
+            self.world = None
+            self.track = self._goto(sim, cmd)
+            self.final = i == self.last_goto
+            self.plan_time = self.track.plan.time
+            for tol in self.inside:
+                self.inside[tol] = None
+        elif cmd.kind == "world_twist":
+            self.track, self.final, self.world = None, False, np.array(cmd.value, dtype=float)
+        else:
+            self.track, self.final, self.world = None, False, None
+            self.apply(sim, cmd)
+
+    def _goto(self, sim, cmd) -> _Tracking:
+        robot = self.scen.robot
+        x, y, th = cmd.value
+        gx, gy, phi = self.motion.guide
+        c, s = math.cos(sim.pose[2]), math.sin(sim.pose[2])
+        here = (sim.pose[0] + c * gx - s * gy, sim.pose[1] + s * gx + c * gy)
+        if math.hypot(x - here[0], y - here[1]) <= 1e-6:
+            plan = plan_turn(robot, here, float(sim.pose[2]), float(sim.pose[2]) if th is None else th,
+                             steer=sim.heading, headroom=self.scen.headroom)
+        else:
+            route = Route("goto", [here, (x, y)], (float(sim.pose[2]), th))
+            plan = plan_route(robot, route, steer=sim.heading, headroom=self.scen.headroom)
+        if not plan.feasible:
+            raise InputError(self.scen.source, cmd.line, f"goto ({x:g}, {y:g}) from ({here[0]:.4g}, {here[1]:.4g}): "
+                             f"{plan.reason}")
+        return _Tracking(plan, sim.t + self._delay(), self.motion, self.gains, robot)
+
+    def _delay(self) -> float:
+        """s: when a plan begins after the step it is made at.  With rate-limited actuators the
+        first command moves the base only from the next row, so the plan starts there."""
+        return self.sim.dt if self.lead else 0.0
+
+    # -- the stepping loop (to be replaced by the compiled engine) -----------------------
+    def _steps(self, sim, n):
+        """Yield (row, ref (3,), error) for steps 0 .. n-1."""
+        script, ks = self.scen.script, self.ks
+        dt = sim.dt
+        out = np.empty(OUT_SIZE)
+        now = np.zeros(3)
+        nan3 = np.full(3, np.nan)
+        P, scale, A, Pm, rows, W, res = self._fk
+        j = 0
+        for k in range(n):
+            while j < len(ks) and ks[j] <= k:
+                self._command(sim, j, script[j])
+                j += 1
+            tr = self.track
+            if tr is not None or self.world is not None:
+                motion_now(P, scale, sim.heading, sim.spin, A, Pm, rows, W, res, now)
+            if tr is not None:
+                pt, pp, pv, ph, pi, pxy = tr.arrays
+                control(tr.law, sim.pose, now, self.lead, sim.t - tr.t0, dt, pt, pp, pv, ph, pi, pxy, tr.frame,
+                        tr.gains, tr.size, tr.steered, out)
+                row = sim.step(twist=out[:3].copy())
+                yield row, out[3:6].copy(), float(out[6])
+            elif self.world is not None:
+                # the command acts from the heading the base will have when it takes effect
+                th = float(sim.pose[2]) + (float(now[2]) * dt if self.lead else 0.0)
+                yield sim.step(twist=body_twist_for_world(th, self.world, dt)), nan3, math.nan
+            else:
+                yield sim.step(), nan3, math.nan
+
+    # -- blocks for the runner --------------------------------------------------------------
+    def blocks(self, block_rows: int = 1024):
+        """Yield (Block, extra (m, len(odo columns) + 4)) covering the run."""
+        scen = self.scen
+        sim = self.sim
+        if scen.plan is not None:
+            self.track = _Tracking(scen.plan, self._delay(), self.motion, self.gains, scen.robot)
+        rows, extra, k0 = [], [], 0
+        try:
+            for row, ref, err in self._steps(sim, scen.steps):
+                self._observe(row, ref, err)
+                rows.append(row)
+                extra.append(np.concatenate([ref, [err]]))
+                if self.on_row is not None:
+                    self.on_row(row)
+                if len(rows) == block_rows:
+                    yield self._block(k0, rows, extra)
+                    k0 += len(rows)
+                    rows, extra = [], []
+        except KeyboardInterrupt:
+            if rows:
+                yield self._block(k0, rows, extra)
+            raise
+        if rows:
+            yield self._block(k0, rows, extra)
+
+    def _block(self, k0, rows, extra):
+        """(Block, extra columns: the odometer's, then COLUMNS) of the rows from k0."""
+        block = Block(k0, np.stack([r.values for r in rows]), self.sim.n)
+        ref = np.asarray(extra, dtype=float)
+        if self.odo is not None:
+            ref = np.hstack([self.odo.update_block(block), ref])
+        return block, ref
+
+    def _observe(self, row, ref, err):
+        if math.isfinite(err):
+            for a in self.afters:
+                if row.t >= a - 1e-9 * self.scen.step and err > self.peak[a][0]:
+                    self.peak[a] = (err, float(row.t))
+        if not self.final or self.track is None:
+            return
+        goal = self.track.goal
+        d = math.hypot(row.pose[0] - goal[0], row.pose[1] - goal[1])
+        e = abs(wrap(row.pose[2] - goal[2]))
+        for tol in self.tolerances:
+            if d <= tol[0] and e <= tol[1]:
+                if self.inside[tol] is None:
+                    self.inside[tol] = float(row.t)
+            else:
+                self.inside[tol] = None
+
+    def summary(self) -> dict:
+        """``arrival``: {(position m, heading rad): time s the base came within that tolerance of
+        the final goal and stayed, or None}; ``peak_error``: {after s: (m, s)}; ``plan_time``: s
+        of the final plan (None without one); ``goal``: its end pose."""
+        return {"arrival": dict(self.inside), "peak_error": dict(self.peak), "plan_time": self.plan_time,
+                "goal": None if self.track is None else tuple(float(v) for v in self.track.goal),
+                "route_tolerance": tuple(self.scen.route.tolerance) if self.scen.route is not None
+                else DEFAULT_TOLERANCE}
