@@ -21,7 +21,7 @@ from sim.files.yamlread import load_file
 
 MAX_STEPS = 10 ** 9
 _KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "skid", "script",
-         "commands", "checks", "odometry", "description")
+         "commands", "checks", "odometry", "control_period", "observe_truth", "description")
 
 
 @dataclass(frozen=True)
@@ -45,6 +45,8 @@ class Check:
     kind : ``pose`` (at, pose, tolerance), ``slip_below`` / ``slip_above``
     (threshold m/s, over the run or at ``at``), ``wheel`` (at, name, steer
     and/or spin with tolerances), ``odometry_error_below`` (position m, heading rad).
+    end : the file said ``at: end`` (``at`` is then the duration; a run that a
+    controller or client ends early checks its last row instead).
     """
 
     kind: str
@@ -52,11 +54,18 @@ class Check:
     params: dict
     line: int | None = None
     text: str = ""
+    end: bool = False
 
 
 @dataclass(frozen=True)
 class Scenario:
-    """A validated scenario.  ``steps`` = number of rows (t = 0 .. duration inclusive)."""
+    """A validated scenario.  ``steps`` = number of rows (t = 0 .. duration inclusive).
+
+    ``scripted`` is False when the file has neither ``script`` nor ``commands``
+    (a scenario for a controller or ``trundle serve``; ``script`` is then empty).  ``control_period``
+    (s, a whole number of steps) is how often a controller is asked for a
+    command; ``observe_truth`` lets the controller see the true pose.
+    """
 
     robot: Robot
     step: float
@@ -73,10 +82,18 @@ class Scenario:
     description: str = ""
     skid: bool = True
     warnings: tuple = ()
+    control_period: float | None = None
+    observe_truth: bool = False
+    scripted: bool = True
 
     @property
     def steps(self) -> int:
         return int(round(self.duration / self.step)) + 1
+
+    @property
+    def control_steps(self) -> int:
+        """Steps per control period (1 when the file gives none)."""
+        return 1 if self.control_period is None else int(round(self.control_period / self.step))
 
 
 def _hash_bytes(data: bytes) -> str:
@@ -135,7 +152,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     elif "script" in data:
         script = _script(data["script"], at("script"), robot)
     else:
-        raise where.error("missing 'script' (or 'commands', a CSV command log)")
+        script = []  # commands come from a controller or a client (checked when run)
     for c in script:
         if c.at > duration + 1e-12:
             raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
@@ -149,8 +166,16 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     if not isinstance(desc, str):
         raise at("description").error("expected text")
     warnings = tuple(dict.fromkeys(robot.warnings + tuple(where.notes)))
+    period = None
+    if "control_period" in data:
+        period = F.number(data["control_period"], at("control_period"), positive=True, unit="s")
+        ratio = period / step
+        if abs(ratio - round(ratio)) > 1e-6 * max(1.0, ratio) or round(ratio) < 1:
+            raise at("control_period").error(f"{period:g} s is not a whole number of steps of {step:g} s")
+    truth = F.boolean(data["observe_truth"], at("observe_truth")) if "observe_truth" in data else False
     return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
-                    source, robot_hash, scen_hash, odometry, desc, skid, warnings)
+                    source, robot_hash, scen_hash, odometry, desc, skid, warnings, period, truth,
+                    "script" in data or "commands" in data)
 
 
 def _start_steer(robot, value, where):
@@ -368,6 +393,8 @@ def _checks(items, where, robot, duration):
             F.check_keys(item, (kind,), w)
             tol = _tolerance(item[kind], w.at(item, kind), ("position", "heading"))
             out.append(Check(kind, None, {"tolerance": tol}, w.line))
+        if item.get("at") == "end":
+            out[-1] = replace(out[-1], end=True)
     return out
 
 
