@@ -113,13 +113,12 @@ def test_exact_counts_are_whole_rotations_times_encoder_resolution(tmp_path):
     res = run_scenario(scen, controller=rec, keep=True)
     tr = res.trace
     for name in ("left", "right"):
-        angle = np.concatenate([[0.0], np.cumsum(tr[f"{name}.spin"] * 0.01)])
-        want = np.floor(angle * 2048 / (2 * math.pi))
+        want = np.floor(tr[f"{name}.angle"] * 2048 / (2 * math.pi))    # row k: the rotation at t_k
         got = [o.counts[name] for o in rec.seen]
-        assert got == [int(c) for c in want[:len(got)]]
+        assert got == [int(c) for c in want]
         assert got[-1] > 300        # it really turned: about 2.6 m/s / 0.08 m over 1 s
-    # castor readings are exact (no steer_resolution): the heading row k-1 swivelled to
-    assert rec.seen[50].steer["castor_front"] == pytest.approx(tr["castor_front.steer"][50], abs=1e-12)
+    # castor readings are exact (no steer_resolution): the heading at t_k
+    assert rec.seen[50].steer["castor_front"] == tr["castor_front.steer"][50]
 
 
 class Replay:
@@ -142,20 +141,27 @@ class Replay:
 
 def test_counts_go_through_the_odometry_model_and_replay_is_byte_identical(tmp_path):
     # the bundled odometry scenario's encoders have random count errors; a controller that gives the
-    # script's commands at the same steps reproduces the scripted trace byte for byte, so
-    # reading the encoders ahead of each row leaves the random stream untouched, and the
-    # counts it read are the trace's NAME.counts (the encoder model's output)
+    # script's commands at the same steps reproduces the scripted trace (counts and engine columns
+    # exactly), so reading the encoders ahead of each row leaves the random stream untouched, and
+    # the counts it read are the trace's NAME.counts (the encoder model's output)
     odo = (HERE.parent / "scenarios" / "ward-cart-odometry.yaml").read_text().split("odometry:")[1].split("checks:")[0]
     scen = _scenario(tmp_path, "duration: 2\nscript:\n  - {at: 0, twist: {vx: 0.5, omega: 0.4}}\n"
                                "  - {at: 0.8, twist: {omega: -2}}\n  - {at: 1.5, stop: true}\n"
                                "odometry:" + odo)
     assert scen.odometry.count_noise == 1.0
-    ref, ctl_csv = tmp_path / "script.csv", tmp_path / "ctl.csv"
-    run_scenario(scen, csv=str(ref), engine="reference")
+    ref = run_scenario(scen, keep=True).trace
     rep = Replay(scen)
-    res = run_scenario(scen, csv=str(ctl_csv), controller=rep, keep=True)
-    assert ctl_csv.read_bytes() == ref.read_bytes()
-    exact = np.floor(np.concatenate([[0.0], np.cumsum(res.trace["left.spin"] * 0.01)]) * 2048 / (2 * math.pi))
+    res = run_scenario(scen, controller=rep, keep=True)
+    assert list(res.trace) == list(ref)
+    for col, want in ref.items():
+        got = res.trace[col]
+        if col.startswith("odom_"):
+            # the dead reckoning takes the rows one at a time here, a block at a time there:
+            # the same numbers to rounding
+            assert np.allclose(got, want, rtol=0, atol=1e-12), col
+        else:
+            assert np.array_equal(got, want, equal_nan=True), col
+    exact = np.floor(res.trace["left.angle"] * 2048 / (2 * math.pi))
     counts = np.array([o.counts["left"] for o in rep.seen])
     assert np.array_equal(counts, res.trace["left.counts"][:len(counts)])
     assert np.any(counts != exact[:len(counts)])     # the noise shows
@@ -187,7 +193,7 @@ duration: 0.5
     deg = math.radians(1.0)
     for k in (10, 25, 50):
         o = ctl.seen[k]
-        true = res.trace["front.steer"][k - 1]       # the angle the previous step turned to
+        true = res.trace["front.steer"][k]           # the angle at t_k
         assert o.steer["front"] == pytest.approx(round(true / deg) * deg, abs=1e-15)
         assert abs(o.steer["front"] - true) <= deg / 2
     assert ctl.seen[50].steer["front"] == pytest.approx(0.4, abs=deg / 2)   # 1 rad/s for 0.5 s, stops at 0.4

@@ -130,7 +130,7 @@ def test_python_example_trace_equals_the_scripted_replay(tmp_path):
     end = rows[-1]["t"]
     replay = tmp_path / "replay.yaml"
     replay.write_text(f"robot: {CART}\nstep: 0.01\nduration: {end}\ncommands: commands.csv\n")
-    run_scenario(load_scenario(replay), csv=str(tmp_path / "replay.csv"), engine="reference")
+    run_scenario(load_scenario(replay), csv=str(tmp_path / "replay.csv"))
     assert (tmp_path / "replay.csv").read_bytes() == served.read_bytes()
 
 

@@ -14,7 +14,7 @@ static const double WARD_CART_WHEEL_RADIUS_M[2] = {0.08, 0.08};
 
 /* twist[i] = sum_j FORWARD[i][j] * spin[j] */
 static const double WARD_CART_FORWARD[3][2] = {
-    {0.03999999999999998, 0.039999999999999994},
+    {0.039999999999999994, 0.039999999999999994},
     {0.0, 0.0},
     {-0.18181818181818185, 0.18181818181818185},
 };
