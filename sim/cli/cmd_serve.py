@@ -41,6 +41,8 @@ def run(args) -> int:
         if not os.path.isdir(d):
             raise InputError("--csv", None, f"directory '{os.path.dirname(args.csv) or '.'}' does not exist")
     scen = load_scenario(args.scenario)
+    from sim.cli.options import print_warnings
+    print_warnings(scen)
     res, driver = serve(scen, host, port, realtime=args.realtime, watchdog=watchdog, csv=args.csv)
     print(summary_text(res))
     for line in driver.summary_lines():
