@@ -177,7 +177,12 @@ SCENARIO_CASES = [
      ["not driven"]),
     ("check after the end", HEAD + "script: []\nchecks:\n  - {at: 2, slip_below: 0.1}\n", {}, "s.yaml", 6,
      ["after the end"]),
-    ("no script", HEAD, {}, "s.yaml", 1, ["missing 'script'"]),
+    ("no script", HEAD, {}, "s.yaml", 1, ["no script or commands", "--controller"]),
+    ("control period not whole steps", HEAD + "control_period: 0.025\nscript: []\n", {}, "s.yaml", 4,
+     ["not a whole number of steps"]),
+    ("control period zero", HEAD + "control_period: 0\nscript: []\n", {}, "s.yaml", 4, ["> 0"]),
+    ("observe_truth not a boolean", HEAD + "observe_truth: maybe\nscript: []\n", {}, "s.yaml", 4,
+     ["true or false"]),
     ("unknown align", HEAD + "align: wiat\nscript: []\n", {}, "s.yaml", 4, ["did you mean 'wait'"]),
     # command logs
     ("log: first column not t", HEAD + "commands: log.csv\n", {"log.csv": "time,left.spin\n0,1\n"}, "log.csv", 1,

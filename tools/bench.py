@@ -23,6 +23,12 @@ times; the table shows the median.  Cases:
    numba's on-disk cache warm and cold (an empty cache folder), against the
    same work once everything is loaded;
 9. ``trundle route`` on the bundled ward corridor route with three bases, whole process.
+10. ``trundle serve`` in lockstep on loopback, the ward cart: round trips per second with
+   ``steps: 1`` (a twist, one step, the reply with the counts), from a client in this
+   process (standard library socket and json), beside the engine's own single-step
+   rate (``Simulator.step`` in a loop) and a bare standard-library line echo on the
+   same loopback, the two floors it stands on;
+11. the same server with ``steps: 100``: engine steps per second.
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.
@@ -204,6 +210,111 @@ def _one(case: str, folder: str) -> dict:
     raise SystemExit(f"unknown case {case}")
 
 
+def _engine_steps_per_s(seconds: float) -> float:
+    """``Simulator.step`` on the ward cart under a twist command, in this process."""
+    sys.path.insert(0, ROOT)
+    from sim import Simulator, load_robot
+    sim = Simulator(load_robot(os.path.join(ROBOTS, "ward-cart.yaml")), 0.01)
+    sim.command_twist((0.3, 0.0, 0.2))
+    n, t0, c0 = 0, time.perf_counter(), time.process_time()
+    while time.perf_counter() - t0 < seconds:
+        for _ in range(100):
+            sim.step()
+        n += 100
+    return {"per_s": n / (time.perf_counter() - t0), "cpu_us": 1e6 * (time.process_time() - c0) / n}
+
+
+_ECHO = r"""
+import socket, sys
+srv = socket.create_server(("127.0.0.1", 0))
+print(srv.getsockname()[1], flush=True)
+conn, _ = srv.accept()
+conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+buf = b""
+while True:
+    data = conn.recv(65536)
+    if not data:
+        break
+    buf += data
+    while b"\n" in buf:
+        line, buf = buf.split(b"\n", 1)
+        conn.sendall(b'{"t":0.01,"counts":{"left":12,"right":13},"steer":{}}\n')
+"""
+
+
+def _echo_rate(seconds: float) -> float:
+    """Round trips per second against a minimal standard-library line echo on loopback: the
+    floor that any Python server of this protocol stands on, on this machine, now."""
+    import socket
+    proc = subprocess.Popen([sys.executable, "-c", _ECHO], stdout=subprocess.PIPE, text=True)
+    try:
+        sock = socket.create_connection(("127.0.0.1", int(proc.stdout.readline())))
+        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        rd = sock.makefile("rb")
+        msg = b'{"twist":[0.3,0.0,0.2],"steps":1}\n'
+        n, t0 = 0, time.perf_counter()
+        while time.perf_counter() - t0 < seconds:
+            for _ in range(100):
+                sock.sendall(msg)
+                json.loads(rd.readline())
+            n += 100
+        rate = n / (time.perf_counter() - t0)
+        rd.close()
+        sock.close()
+        proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    return rate
+
+
+def _cpu_s(pid: int) -> float:
+    """CPU time (user + system, s) used so far by process ``pid`` (Linux /proc)."""
+    with open(f"/proc/{pid}/stat") as fh:
+        parts = fh.read().rsplit(")", 1)[1].split()
+    return (int(parts[11]) + int(parts[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def _serve_rate(folder: str, steps: int, seconds: float) -> dict:
+    """Lockstep round trips against ``trundle serve`` on loopback for about ``seconds``."""
+    import socket
+    scen = os.path.join(folder, "serve.yaml")
+    with open(scen, "w") as fh:
+        fh.write(f"robot: {os.path.join(ROBOTS, 'ward-cart.yaml')}\nstep: 0.01\nduration: 1000000\n")
+    env = dict(os.environ, PYTHONPATH=ROOT)
+    proc = subprocess.Popen([sys.executable, "-m", "sim", "serve", scen], stdout=subprocess.PIPE,
+                            stderr=subprocess.DEVNULL, text=True, env=env)
+    try:
+        host, port = proc.stdout.readline().split()[-1].rsplit(":", 1)
+        sock = socket.create_connection((host, int(port)))
+        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        rd = sock.makefile("rb")
+        rd.readline()
+        msg = (json.dumps({"twist": [0.3, 0.0, 0.2], "steps": steps}) + "\n").encode()
+        for _ in range(50):                  # warm up
+            sock.sendall(msg)
+            json.loads(rd.readline())
+        n, t0, c0, s0 = 0, time.perf_counter(), time.process_time(), _cpu_s(proc.pid)
+        while time.perf_counter() - t0 < seconds:
+            for _ in range(20):
+                sock.sendall(msg)
+                json.loads(rd.readline())
+            n += 20
+        wall = time.perf_counter() - t0
+        client_cpu, server_cpu = time.process_time() - c0, _cpu_s(proc.pid) - s0
+        sock.sendall(b'{"bye": true}\n')
+        rd.readline()
+        sock.close()
+        proc.wait(timeout=600)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    return {"round_trips": n, "wall": wall, "per_s": n / wall, "steps_per_s": n * steps / wall,
+            "server_cpu_us": 1e6 * server_cpu / n, "client_cpu_us": 1e6 * client_cpu / n}
+
+
 def _sub(case, folder, env=None) -> dict:
     r = subprocess.run([sys.executable, __file__, "--one", case, "--folder", folder],
                        capture_output=True, text=True, check=True, env=env)
@@ -288,6 +399,21 @@ def main(argv=None) -> int:
             r = _sub("6", folder)
             rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],
                          "wall_s": r["wall"], "steps_per_s": r["steps"] / r["wall"], "peak_mb": r["peak_mb"]})
+        if "10" not in skip or "11" not in skip:
+            eng = [_engine_steps_per_s(2.0) for _ in range(args.repeat)]
+            engine = {"per_s": med([e["per_s"] for e in eng]), "cpu_us": med([e["cpu_us"] for e in eng]),
+                      "echo": med([_echo_rate(2.0) for _ in range(args.repeat)])}
+        for case, steps in (("10", 1), ("11", 100)):
+            if case in skip:
+                continue
+            runs = [_serve_rate(folder, steps, 3.0) for _ in range(args.repeat)]
+            rows.append({"case": case, "label": f"serve lockstep, steps {steps}: " +
+                         ("round trips" if steps == 1 else "engine steps"),
+                         "steps": runs[0]["round_trips"] * steps, "wall_s": med([r["wall"] for r in runs]),
+                         "steps_per_s": med([r["per_s" if steps == 1 else "steps_per_s"] for r in runs]),
+                         "peak_mb": float("nan"), "engine": engine,
+                         "server_cpu_us": med([r["server_cpu_us"] for r in runs]),
+                         "client_cpu_us": med([r["client_cpu_us"] for r in runs])})
     sys.path.insert(0, ROOT)
     import numpy
     from sim.traces import floatfmt
@@ -312,6 +438,17 @@ def main(argv=None) -> int:
             print(f"case 8 first stretch {r['wall_s']:.3f} s with the cache warm ({r['wall_s'] - r['steady']:.3f} s "
                   f"above the same work once loaded, {r['steady']:.4f} s), after {r['imports']:.2f} s of imports "
                   f"(numpy, numba, the engine); cold cache (compiling): {r['cold']:.1f} s")
+        if r["case"] == "10":
+            e = r["engine"]
+            print(f"case 10 {r['steps_per_s']:,.0f} round trips/s; CPU per round trip: server "
+                  f"{r['server_cpu_us']:,.0f} us, of which one engine step {e['cpu_us']:,.0f} us "
+                  f"(Simulator.step alone: {e['per_s']:,.0f} steps/s), client {r['client_cpu_us']:,.0f} us; "
+                  f"a bare standard-library line echo on the same loopback: {e['echo']:,.0f} round trips/s")
+        if r["case"] == "11":
+            e = r["engine"]
+            print(f"case 11 {r['steps_per_s']:,.0f} steps/s through the server "
+                  f"({r['steps_per_s'] / e['per_s']:.0%} of Simulator.step alone); server CPU per request "
+                  f"{r['server_cpu_us']:,.0f} us for 100 steps")
     return 0
 
 

@@ -13,6 +13,10 @@ def add_arguments(p):
     p.add_argument("--json", action="store_true",
                    help="print the summary as one JSON object (checks, measured values, peak slip, final pose, "
                         "the engine's decisions) instead of text")
+    p.add_argument("--controller", metavar="package.module:Name",
+                   help="a Python controller commands the base instead of the script: an object (or a class "
+                        "made with no arguments) with command(observation); the module is looked for in "
+                        "the current folder and on the Python path")
     p.add_argument("--baseline", metavar="PATH",
                    help="compare the trace with a recorded one (exit 1 when they diverge)")
     from sim.cli.options import add_tolerance_arguments
@@ -42,14 +46,20 @@ def run(args) -> int:
     print_warnings(scen)
     if args.at is not None and not args.png:
         raise InputError("--at", None, "needs --png PATH (the picture of the run at that time)")
+    controller = None
+    if args.controller:
+        if args.window or args.png or args.frames:
+            raise InputError("--controller", None, "cannot be combined with --window, --png or --frames")
+        from sim.runs.control import load_controller
+        controller = load_controller(args.controller)
     if args.baseline:
-        return _run_baseline(args, scen)
+        return _run_baseline(args, scen, controller)
     if args.window or args.png or args.frames:
         from sim.view.playback import at_step, view_run
         res = view_run(scen, csv=args.csv, every=args.every, window=args.window, png=args.png,
                        frames=args.frames, fps=args.fps, at=args.at)
     else:
-        res = run_scenario(scen, csv=args.csv, every=args.every)
+        res = run_scenario(scen, csv=args.csv, every=args.every, controller=controller)
     if args.json:
         from sim.runs.summary import summary_dict
         d = summary_dict(res, scen.warnings)
@@ -62,6 +72,8 @@ def run(args) -> int:
         _print_json(d)
     else:
         print(summary_text(res))
+        if controller is not None and scen.script:
+            print("note      the scenario's script was not used: the controller commanded the base")
         if args.png:
             print(f"picture   {args.png}" + (f" (at t = {at_step(scen, args.at) * scen.step:g} s)"
                                              if args.at is not None else ""))
@@ -74,7 +86,7 @@ def run(args) -> int:
     return 0 if res.passed else 1
 
 
-def _run_baseline(args, scen) -> int:
+def _run_baseline(args, scen, controller=None) -> int:
     """``--baseline``: run (to a temporary CSV unless --csv), compare, report."""
     from sim.runs.baseline import run_against
     from sim.runs.runner import summary_text
@@ -82,7 +94,7 @@ def _run_baseline(args, scen) -> int:
 
     tol, rules = parse_tolerances(args.tol)
     res, rep, notes = run_against(scen, args.baseline, tol, rules, csv=args.csv,
-                                  every=None if args.every == 1 else args.every)
+                                  every=None if args.every == 1 else args.every, controller=controller)
     if args.json:
         from sim.runs.summary import summary_dict
         d = summary_dict(res, scen.warnings)

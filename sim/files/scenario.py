@@ -21,7 +21,8 @@ from sim.files.yamlread import load_file
 
 MAX_STEPS = 10 ** 9
 _KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "skid", "script",
-         "commands", "route", "controller", "checks", "odometry", "description")
+         "commands", "route", "controller", "checks", "odometry", "control_period", "observe_truth",
+         "description")
 CHECK_KINDS = ("pose", "slip_below", "slip_above", "wheel", "odometry_error_below", "arrive_within",
                "tracking_error_below")
 
@@ -51,6 +52,8 @@ class Check:
     and/or spin with tolerances), ``odometry_error_below`` (position m, heading rad),
     ``arrive_within`` (time s, tolerance (position m, heading rad) or None: the route's),
     ``tracking_error_below`` (threshold m, after s).
+    end : the file said ``at: end`` (``at`` is then the duration; a run that a
+    controller or client ends early checks its last row instead).
     """
 
     kind: str
@@ -58,11 +61,18 @@ class Check:
     params: dict
     line: int | None = None
     text: str = ""
+    end: bool = False
 
 
 @dataclass(frozen=True)
 class Scenario:
-    """A validated scenario.  ``steps`` = number of rows (t = 0 .. duration inclusive)."""
+    """A validated scenario.  ``steps`` = number of rows (t = 0 .. duration inclusive).
+
+    ``scripted`` is False when the file has neither ``script`` nor ``commands``
+    (a scenario for a controller or ``trundle serve``; ``script`` is then empty).  ``control_period``
+    (s, a whole number of steps) is how often a controller is asked for a
+    command; ``observe_truth`` lets the controller see the true pose.
+    """
 
     robot: Robot
     step: float
@@ -83,6 +93,9 @@ class Scenario:
     plan: object = None
     controller: tuple | None = None
     headroom: float = 0.0
+    control_period: float | None = None
+    observe_truth: bool = False
+    scripted: bool = True
 
     @property
     def steps(self) -> int:
@@ -92,6 +105,11 @@ class Scenario:
     def closed_loop(self) -> bool:
         """Whether a controller drives the base (a route, goto entries or world-frame twists)."""
         return self.route is not None or any(c.kind in ("goto", "world_twist") for c in self.script)
+
+    @property
+    def control_steps(self) -> int:
+        """Steps per control period (1 when the file gives none)."""
+        return 1 if self.control_period is None else int(round(self.control_period / self.step))
 
 
 def _hash_bytes(data: bytes) -> str:
@@ -164,7 +182,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         route, plan, start = _route(data["route"], at("route"), base_dir, robot,
                                     start if "start" in data else None, headroom)
     else:
-        raise where.error("missing 'script' (or 'commands', a CSV command log, or 'route')")
+        script = []  # commands come from a controller or a client (checked when run)
     for c in script:
         if c.at > duration + 1e-12:
             raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
@@ -182,8 +200,16 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     if not isinstance(desc, str):
         raise at("description").error("expected text")
     warnings = tuple(dict.fromkeys(robot.warnings + tuple(where.notes)))
+    period = None
+    if "control_period" in data:
+        period = F.number(data["control_period"], at("control_period"), positive=True, unit="s")
+        ratio = period / step
+        if abs(ratio - round(ratio)) > 1e-6 * max(1.0, ratio) or round(ratio) < 1:
+            raise at("control_period").error(f"{period:g} s is not a whole number of steps of {step:g} s")
+    truth = F.boolean(data["observe_truth"], at("observe_truth")) if "observe_truth" in data else False
     return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
-                    source, robot_hash, scen_hash, odometry, desc, skid, warnings, route, plan, controller, headroom)
+                    source, robot_hash, scen_hash, odometry, desc, skid, warnings, route, plan, controller,
+                    headroom, period, truth, "script" in data or "commands" in data or "route" in data)
 
 
 def _route(value, where, base_dir, robot, start, headroom):
@@ -484,6 +510,8 @@ def _checks(items, where, robot, duration):
             F.check_keys(item, (kind,), w)
             tol = _tolerance(item[kind], w.at(item, kind), ("position", "heading"))
             out.append(Check(kind, None, {"tolerance": tol}, w.line))
+        if item.get("at") == "end":
+            out[-1] = replace(out[-1], end=True)
     return out
 
 

@@ -164,6 +164,18 @@ class DeadReckoner:
         return body_increment(xi, 1.0)
 
 
+def steer_reading(heading, resolution) -> np.ndarray:
+    """Steering angle readings: ``heading`` (..., k) rad rounded to ``resolution`` (k,) rad
+    where that is > 0, exact elsewhere."""
+    h = np.asarray(heading, dtype=float)
+    res = np.asarray(resolution, dtype=float)
+    q = res > 0
+    if np.any(q):
+        h = h.copy()
+        h[..., q] = np.round(h[..., q] / res[q]) * res[q]
+    return h
+
+
 class Odometer:
     """Encoder readings and dead reckoning alongside a run, one row (or block) at a time.
 
@@ -205,17 +217,41 @@ class Odometer:
         self.k = 0
         self._err = np.zeros(len(idx))               # accumulated reading error, rad
         self._prev = None                            # (angle, counts, steer reading, slip) of the last row
+        self._ahead = None                           # random normals drawn by reading() for the next row
         self.final_pos = self.final_head = 0.0
         self.peak_pos = self.peak_head = 0.0
         self.peak_pos_t = self.peak_head_t = 0.0
 
     def _read_steer(self, steer):
-        h = steer[:, self.reckoner.read]
-        q = self.res > 0
-        if np.any(q):
-            h = h.copy()
-            h[:, q] = np.round(h[:, q] / self.res[q]) * self.res[q]
-        return h
+        return steer_reading(steer[:, self.reckoner.read], self.res)
+
+    def reading(self, angle) -> np.ndarray:
+        """Counts (k,) the measured wheels show at the next row's time, before that row is made.
+
+        ``angle`` (n,) rad: every wheel's true cumulative rotation at that time
+        (the state a step has just reached).  This is what a controller reads
+        from its encoders.  The row's random errors are drawn here and kept, so
+        the :meth:`update` / :meth:`update_block` that later takes the row gives
+        the same counts (and the random stream is the same as without reading).
+        """
+        ang = np.asarray(angle, dtype=float)[self.idx]
+        if self.rng is None:
+            return np.floor((ang + self._err) * self.per_rad)
+        if self._ahead is None:
+            self._ahead = self.rng.standard_normal((1, 2, len(self.idx)))
+        if self._prev is None:
+            prev_ang, prev_slip = ang, np.zeros(len(self.idx))
+        else:
+            prev_ang, prev_slip = self._prev[0], self._prev[3]
+        err = self._err + self._noise(ang - prev_ang, prev_slip, self._ahead[0])
+        return np.floor((ang + err) * self.per_rad)
+
+    def _noise(self, dphi_true, prev_slip, z):
+        """Reading error (rad) gained over steps of true rotation ``dphi_true`` after slip
+        ``prev_slip`` (m/s), from standard normals ``z`` (..., 2, k)."""
+        sig = (self.spec.count_noise * self.tick * np.sqrt(np.abs(dphi_true) / (2 * math.pi)),
+               self.spec.slip_noise * prev_slip * math.sqrt(self.dt) / self.radius)
+        return sig[0] * z[..., 0, :] + sig[1] * z[..., 1, :]
 
     def update(self, row) -> tuple:
         """One :class:`~sim.engine.StepResult`; returns the extra column values."""
@@ -245,11 +281,10 @@ class Odometer:
         prev_slip = np.vstack([ps, slip[:-1]])
         prev_h = np.vstack([ph, hread[:-1]])
         if self.rng is not None:
-            z = self.rng.standard_normal((m, 2, len(self.idx)))
-            dphi_true = ang - prev_ang
-            sig = (self.spec.count_noise * self.tick * np.sqrt(np.abs(dphi_true) / (2 * math.pi)),
-                   self.spec.slip_noise * prev_slip * math.sqrt(self.dt) / self.radius)
-            noise = sig[0] * z[:, 0] + sig[1] * z[:, 1]
+            z = self.rng.standard_normal((m - (self._ahead is not None), 2, len(self.idx)))
+            if self._ahead is not None:  # drawn by reading() for this row
+                z, self._ahead = np.concatenate([self._ahead, z]), None
+            noise = self._noise(ang - prev_ang, prev_slip, z)
             err = np.cumsum(np.vstack([self._err, noise]), axis=0)[1:]
         else:
             err = np.broadcast_to(self._err, ang.shape)

@@ -40,13 +40,13 @@ def missing_message() -> str:
     return "baseline not found (record one with 'trundle batch --update' or 'trundle run --csv')"
 
 
-def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every=None):
+def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every=None, controller=None):
     """Run ``scen`` and compare its trace with ``baseline``.
 
     Returns ``(run_result, diff_report, notes)``; ``notes`` (list of str) name
     the likely causes of a divergence.  The trace goes to ``csv`` if given,
     else to a temporary file that is removed.  ``every`` defaults to the
-    baseline's.
+    baseline's.  ``controller``: as for :func:`~sim.runs.runner.run_scenario`.
     """
     baseline = os.fspath(baseline)
     if not os.path.isfile(baseline):
@@ -59,7 +59,7 @@ def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every
         tmp = tempfile.mkdtemp(prefix="trundle-")
         csv = os.path.join(tmp, "run.csv")
     try:
-        res = run_scenario(scen, csv=csv, every=every)
+        res = run_scenario(scen, csv=csv, every=every, controller=controller)
         rep = compare(baseline, csv, tol, rules)
         if tmp:
             rep.path_b = "(this run)"

@@ -7,7 +7,7 @@ trace as numpy arrays (one array per CSV column), for scripts and tests.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -62,6 +62,7 @@ class RunResult:
 class _Checks:
     def __init__(self, scen: Scenario):
         self.scen = scen
+        self.last = None  # the last row seen
         self.at_rows = {}
         for c in scen.checks:
             if c.at is not None:
@@ -72,6 +73,9 @@ class _Checks:
         dt = self.scen.step
         for c in self.scen.checks:
             row = self.at_rows.get(int(round(c.at / dt))) if c.at is not None else None
+            if row is None and c.end and self.last is not None:  # a controlled run that ended early
+                row = self.last
+                c = replace(c, at=row.t)
             if c.at is not None and row is None:
                 out.append(CheckResult(False, f"{c.kind} at t={c.at:g} s: run ended before this time", c.line))
                 continue
@@ -229,7 +233,7 @@ def _blocks(scen, odo, on_row):
 
 
 def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: bool = False,
-                 on_row=None) -> RunResult:
+                 on_row=None, controller=None) -> RunResult:
     """Run ``scen`` to the end.
 
     Parameters
@@ -244,19 +248,32 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         with the run; use the CSV for long runs).
     on_row : callable(StepResult) or None
         Called with every row (a renderer, a progress bar), a block at a time.
+    controller : object with ``command(observation)``, or a driver
+        Commands the base instead of the script (:mod:`sim.runs.control`).
     """
+    if controller is None and not scen.scripted:
+        from sim.errors import InputError
+        raise InputError(scen.source, 1, "no script or commands: nothing commands the base; give a script, "
+                                         "or drive it with 'trundle run --controller package.module:Name' "
+                                         "or 'trundle serve'")
     odo = None
     if scen.odometry is not None:
         from sim.odometry.encoders import Odometer
         odo = Odometer(scen.odometry, scen.robot, scen.step, scen.start)
+    extra_cols = tuple(odo.columns) if odo else ()
     loop = None
-    if scen.closed_loop:
+    if controller is not None:
+        from sim.runs.control import Driver, PeriodDriver, controlled_blocks
+        driver = controller if isinstance(controller, Driver) else PeriodDriver(controller, scen)
+        blocks = controlled_blocks(scen, odo, driver, on_row)
+        extra_cols += tuple(driver.columns)
+    elif scen.closed_loop:
         from sim.runs.closedloop import ClosedLoop  # a controller computes the twist every step
         loop = ClosedLoop(scen, entry_steps(scen.script, scen.step), apply_command, simulator_for(scen), odo, on_row)
         blocks = loop.blocks()
+        extra_cols += tuple(loop.columns)
     else:
         blocks = _blocks(scen, odo, on_row)
-    extra_cols = (tuple(odo.columns) if odo else ()) + (tuple(loop.columns) if loop else ())
     header = columns(scen.robot, extra_cols)
     writer = TraceWriter(csv, header) if csv else None
     kept = [] if keep else None
@@ -310,6 +327,7 @@ def _metric(robot) -> np.ndarray:
 def _account(res: RunResult, checks, block, last_pos) -> None:
     """Fold one block of rows into the running summary."""
     m = len(block)
+    checks.last = block.row(m - 1)
     for k in checks.at_rows:
         if block.k0 <= k < block.k0 + m:
             checks.at_rows[k] = block.row(k - block.k0)
