@@ -160,11 +160,7 @@ class Simulator:
         vx, vy, w = (float(v) for v in twist)
         if not (math.isfinite(vx) and math.isfinite(vy) and math.isfinite(w)):
             raise ValueError(f"twist must be finite, got {(vx, vy, w)}")
-        g = self._g
-        if g[K.G_MODE] != K.MODE_TWIST or g[K.G_CMD] != vx or g[K.G_CMD + 1] != vy or g[K.G_CMD + 2] != w:
-            g[K.G_MODE] = K.MODE_TWIST
-            g[K.G_CMD], g[K.G_CMD + 1], g[K.G_CMD + 2] = vx, vy, w
-            g[K.G_IK_OK] = 0.0
+        K.set_twist(self._g, vx, vy, w)
 
     def command_wheels(self, wheels: dict) -> None:
         """Set spin (rad/s) and/or steer (rad) commands by wheel name; others keep theirs."""
@@ -211,6 +207,21 @@ class Simulator:
         out = np.empty((1, self.width))
         K.run_stretch(*self._args, out)
         return StepResult(out[0], self.n)
+
+    def advance_tracking(self, m: int, track, out: np.ndarray, extra: np.ndarray) -> Block:
+        """Run ``m`` steps under a tracking law, in compiled code (:func:`sim.engine.tracking.run_tracking`).
+
+        ``track`` holds the law's inputs (``law``, ``lead``, ``t0``, ``arrays`` (plan_t,
+        plan_pose, plan_speed, plan_hint, plan_index, path_xy), ``frame``, ``gains``,
+        ``size``, ``steered``; see :class:`sim.runs.closedloop.Tracking`).  Rows go to
+        ``out`` (m, width); the reference pose and path error to ``extra`` (m, 4).
+        """
+        from sim.engine.tracking import run_tracking
+        k0 = self.k
+        pt, pp, pv, ph, pi, pxy = track.arrays
+        run_tracking(*self._args, out[:m], extra[:m], track.law, track.lead, track.t0, pt, pp, pv, ph, pi, pxy,
+                     track.frame, track.gains, track.size, track.steered)
+        return Block(k0, out[:m], self.n)
 
     def advance(self, m: int, out: np.ndarray | None = None) -> Block:
         """Run ``m`` steps under the commands in force; returns their rows as a :class:`Block`

@@ -257,6 +257,15 @@ def step_into(P, S, g, A, Pm, rows, Wk, out):
 
 
 @kernel
+def set_twist(g, vx, vy, w):
+    """Command body twist (vx, vy, w) from now on (the inverse kinematics is redone when it changes)."""
+    if g[G_MODE] != MODE_TWIST or g[G_CMD] != vx or g[G_CMD + 1] != vy or g[G_CMD + 2] != w:
+        g[G_MODE] = MODE_TWIST
+        g[G_CMD], g[G_CMD + 1], g[G_CMD + 2] = vx, vy, w
+        g[G_IK_OK] = 0.0
+
+
+@kernel
 def run_stretch(P, S, g, A, Pm, rows, Wk, out):
     """``len(out)`` steps under the commands in force; row j of ``out`` (m, width) is row k + j."""
     for j in range(out.shape[0]):

@@ -1,8 +1,9 @@
 """Tracking controllers: the body twist that keeps a base on its planned motion.
 
 Each law is written once, as a compiled function on plain arrays (:func:`control`
-dispatches), so that the stepping loop can call it every step -- today the small loop
-of :mod:`sim.runs.closedloop`, later the compiled engine itself.
+dispatches), so that the stepping loop calls it every step inside the compiled stretch
+(:func:`run_tracking`, used by :mod:`sim.runs.closedloop` through
+:meth:`sim.engine.simulator.Simulator.advance_tracking`).
 
 The reference is a plan from :mod:`sim.theory.speedplan`, as arrays: ``plan_t`` (M,) s,
 non-decreasing; ``plan_pose`` (M, 3) the body origin's reference pose (world, m, rad,
@@ -57,7 +58,8 @@ import math
 
 import numpy as np
 
-from sim.engine.jit import kernel
+from sim.engine.step import G_DT, G_K, G_RATE, G_SCALE, G_TH, G_X, HEAD, SPIN, set_twist, step_into
+from sim.jit import kernel
 from sim.theory.constraints import motion_rows_into
 from sim.theory.kinematics import solve_motion
 from sim.theory.linalg import pinv_into
@@ -301,3 +303,34 @@ def control(law, pose, now, lead, t, dt, plan_t, plan_pose, plan_speed, plan_hin
             cmd[i] += HINT_SPEED * plan_hint[h, i]
     for i in range(3):
         out[i] = cmd[i]
+
+
+@kernel
+def run_tracking(P, S, g, A, Pm, rows, Wk, out, extra, law, lead, t0, plan_t, plan_pose, plan_speed, plan_hint,
+                 plan_index, path_xy, frame, gains, size, steered):
+    """``len(out)`` steps under tracking control, all in compiled code: per step the motion
+    under way (:func:`motion_now`), the law (:func:`control`) at the plan time ``t - t0``, the
+    command, and the engine's step (:func:`sim.engine.step.step_into`) into ``out[j]``.
+    ``extra[j]`` gets the reference pose (3) and the path error (m).  State arrays as in
+    :mod:`sim.engine.step`."""
+    n = P.shape[1]
+    ctl = np.empty(OUT_SIZE)
+    now = np.empty(3)
+    A2 = np.empty((2 * n, 3))
+    W2 = np.empty((2 * n, 3))
+    res2 = np.empty(2 * n)
+    Pm2 = np.empty((3, 2 * n))
+    rows2 = np.empty((2, 2 * n), np.int64)
+    scale = g[G_SCALE:G_SCALE + 3]
+    for j in range(out.shape[0]):
+        motion_now(P, scale, S[HEAD], S[SPIN], A2, Pm2, rows2, W2, res2, now)
+        k = g[G_K]
+        dt = g[G_DT]
+        t = k / g[G_RATE] if g[G_RATE] > 0.0 else k * dt
+        control(law, g[G_X:G_TH + 1], now, lead, t - t0, dt, plan_t, plan_pose, plan_speed, plan_hint,
+                plan_index, path_xy, frame, gains, size, steered, ctl)
+        set_twist(g, ctl[0], ctl[1], ctl[2])
+        step_into(P, S, g, A, Pm, rows, Wk, out[j])
+        for i in range(3):
+            extra[j, i] = ctl[3 + i]
+        extra[j, 3] = ctl[6]

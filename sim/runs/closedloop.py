@@ -6,10 +6,9 @@ blocks of rows as the open-loop engines, plus four columns (:data:`COLUMNS`): th
 reference pose ``ref_x, ref_y, ref_theta`` (world, m, rad; blank while no controller
 drives) and ``track_error``, the tracked point's distance from the planned path (m).
 
-The stepping itself is the small loop in :meth:`ClosedLoop._steps`: per step, the
-motion already under way (:func:`sim.engine.tracking.motion_now`), the control law
-(:func:`sim.engine.tracking.control`, compiled) and one :meth:`Simulator.step`.  It is
-kept apart so that the compiled stretch of the engine can take it over.
+Under a plan each stretch between script entries runs in compiled code
+(:func:`sim.engine.tracking.run_tracking`): per step, the motion already under way, the
+control law and the engine's step.
 """
 from __future__ import annotations
 
@@ -18,7 +17,7 @@ import math
 import numpy as np
 
 from sim.engine.record import Block
-from sim.engine.tracking import DEFAULT_GAINS, LAWS, OUT_SIZE, control, motion_now
+from sim.engine.tracking import DEFAULT_GAINS, LAWS, motion_now
 from sim.errors import InputError
 from sim.model.route import DEFAULT_TOLERANCE, Route
 from sim.theory.kinematics import twist_scale
@@ -28,11 +27,13 @@ from sim.theory.speedplan import motion_of, plan_route, plan_turn
 COLUMNS = ("ref_x", "ref_y", "ref_theta", "track_error")
 
 
-class _Tracking:
-    """The plan being followed, as the arrays the compiled law takes."""
+class Tracking:
+    """The plan being followed, as the arrays the compiled law takes (see
+    :meth:`sim.engine.simulator.Simulator.advance_tracking`)."""
 
-    def __init__(self, plan, t0, motion, gains, robot):
+    def __init__(self, plan, t0, motion, gains, robot, lead):
         self.t0 = t0
+        self.lead = bool(lead)
         self.plan = plan
         self.law = LAWS[motion.law]
         self.arrays = (np.ascontiguousarray(plan.t), np.ascontiguousarray(plan.pose),
@@ -106,7 +107,7 @@ class ClosedLoop:
             self.track, self.final, self.world = None, False, None
             self.apply(sim, cmd)
 
-    def _goto(self, sim, cmd) -> _Tracking:
+    def _goto(self, sim, cmd) -> Tracking:
         robot = self.scen.robot
         x, y, th = cmd.value
         gx, gy, phi = self.motion.guide
@@ -121,76 +122,62 @@ class ClosedLoop:
         if not plan.feasible:
             raise InputError(self.scen.source, cmd.line, f"goto ({x:g}, {y:g}) from ({here[0]:.4g}, {here[1]:.4g}): "
                              f"{plan.reason}")
-        return _Tracking(plan, sim.t + self._delay(), self.motion, self.gains, robot)
+        return Tracking(plan, sim.t + self._delay(), self.motion, self.gains, robot, self.lead)
 
     def _delay(self) -> float:
         """s: when a plan begins after the step it is made at.  With rate-limited actuators the
         first command moves the base only from the next row, so the plan starts there."""
         return self.sim.dt if self.lead else 0.0
 
-    # -- the stepping loop (to be replaced by the compiled engine) -----------------------
-    def _steps(self, sim, n):
-        """Yield (row, ref (3,), error) for steps 0 .. n-1."""
-        script, ks = self.scen.script, self.ks
+    # -- the stepping ----------------------------------------------------------------------
+    def _world_steps(self, sim, m, out, extra):
+        """``m`` steps under a world-frame twist (a body twist recomputed every step), into ``out``."""
         dt = sim.dt
-        out = np.empty(OUT_SIZE)
         now = np.zeros(3)
-        nan3 = np.full(3, np.nan)
         P, scale, A, Pm, rows, W, res = self._fk
-        j = 0
-        for k in range(n):
-            while j < len(ks) and ks[j] <= k:
-                self._command(sim, j, script[j])
-                j += 1
-            tr = self.track
-            if tr is not None or self.world is not None:
-                motion_now(P, scale, sim.heading, sim.spin, A, Pm, rows, W, res, now)
-            if tr is not None:
-                pt, pp, pv, ph, pi, pxy = tr.arrays
-                control(tr.law, sim.pose, now, self.lead, sim.t - tr.t0, dt, pt, pp, pv, ph, pi, pxy, tr.frame,
-                        tr.gains, tr.size, tr.steered, out)
-                row = sim.step(twist=out[:3].copy())
-                yield row, out[3:6].copy(), float(out[6])
-            elif self.world is not None:
-                # the command acts from the heading the base will have when it takes effect
-                th = float(sim.pose[2]) + (float(now[2]) * dt if self.lead else 0.0)
-                yield sim.step(twist=body_twist_for_world(th, self.world, dt)), nan3, math.nan
-            else:
-                yield sim.step(), nan3, math.nan
+        k0 = sim.k
+        for i in range(m):
+            motion_now(P, scale, sim.heading, sim.spin, A, Pm, rows, W, res, now)
+            # the command acts from the heading the base will have when it takes effect
+            th = float(sim.pose[2]) + (float(now[2]) * dt if self.lead else 0.0)
+            out[i] = sim.step(twist=body_twist_for_world(th, self.world, dt)).values
+        extra[:m] = math.nan
+        return Block(k0, out[:m], sim.n)
 
     # -- blocks for the runner --------------------------------------------------------------
-    def blocks(self, block_rows: int = 1024):
-        """Yield (Block, extra (m, len(odo columns) + 4)) covering the run."""
+    def blocks(self, block_rows: int = 8192):
+        """Yield (Block, extra (m, len(odo columns) + 4)) covering the run.  Between script
+        entries each stretch runs in compiled code: under a plan the tracking law and the
+        engine's step together (:meth:`Simulator.advance_tracking`), open loop the engine alone."""
         scen = self.scen
         sim = self.sim
         if scen.plan is not None:
-            self.track = _Tracking(scen.plan, self._delay(), self.motion, self.gains, scen.robot)
-        rows, extra, k0 = [], [], 0
-        try:
-            for row, ref, err in self._steps(sim, scen.steps):
-                self._observe(row, ref, err)
-                rows.append(row)
-                extra.append(np.concatenate([ref, [err]]))
+            self.track = Tracking(scen.plan, self._delay(), self.motion, self.gains, scen.robot, self.lead)
+        script, ks, total = scen.script, self.ks, scen.steps
+        rows_max = min(block_rows, max(total, 1))
+        out = np.empty((rows_max, sim.width))
+        extra = np.empty((rows_max, len(COLUMNS)))
+        k, j = 0, 0
+        while k < total:
+            while j < len(ks) and ks[j] <= k:
+                self._command(sim, j, script[j])
+                j += 1
+            m = min(ks[j] if j < len(ks) else total, total, k + rows_max) - k
+            if self.track is not None:
+                block = sim.advance_tracking(m, self.track, out, extra)
+            elif self.world is not None:
+                block = self._world_steps(sim, m, out, extra)
+            else:
+                block = sim.advance(m, out=out[:m])
+                extra[:m] = math.nan
+            ext = extra[:m]
+            for i in range(m):
+                row = block.row(i)
+                self._observe(row, ext[i, :3], float(ext[i, 3]))
                 if self.on_row is not None:
                     self.on_row(row)
-                if len(rows) == block_rows:
-                    yield self._block(k0, rows, extra)
-                    k0 += len(rows)
-                    rows, extra = [], []
-        except KeyboardInterrupt:
-            if rows:
-                yield self._block(k0, rows, extra)
-            raise
-        if rows:
-            yield self._block(k0, rows, extra)
-
-    def _block(self, k0, rows, extra):
-        """(Block, extra columns: the odometer's, then COLUMNS) of the rows from k0."""
-        block = Block(k0, np.stack([r.values for r in rows]), self.sim.n)
-        ref = np.asarray(extra, dtype=float)
-        if self.odo is not None:
-            ref = np.hstack([self.odo.update_block(block), ref])
-        return block, ref
+            yield block, (np.hstack([self.odo.update_block(block), ext]) if self.odo is not None else ext.copy())
+            k += m
 
     def _observe(self, row, ref, err):
         if math.isfinite(err):
