@@ -63,7 +63,7 @@ from sim.jit import kernel
 from sim.theory.constraints import motion_rows_into
 from sim.theory.kinematics import solve_motion
 from sim.theory.linalg import pinv_into
-from sim.theory.se2 import compose, exp_increment
+from sim.theory.se2 import compose, exp_increment, wrap
 
 LAW_OMNI, LAW_KANAYAMA, LAW_STEERED = 0, 1, 2
 LAWS = {"omni": LAW_OMNI, "kanayama": LAW_KANAYAMA, "steered": LAW_STEERED}
@@ -93,11 +93,6 @@ def motion_now(P, scale, heading, spin, A, Pm, rows, W, residual, xi):
     m = motion_rows_into(P, heading, A, rows[0], rows[1])
     pinv_into(A, m, scale, W, Pm)
     solve_motion(P, A, Pm, m, rows[0], rows[1], spin, xi, residual)
-
-
-@kernel
-def _wrap(a):
-    return a - 2.0 * math.pi * math.floor((a + math.pi) / (2.0 * math.pi))
 
 
 @kernel
@@ -199,7 +194,7 @@ def omni_law(pose, ref, ff, gains, out):
     cr, sr = math.cos(dth), math.sin(dth)
     out[0] = cr * ff[0] - sr * ff[1] + kp * ex
     out[1] = sr * ff[0] + cr * ff[1] + kp * ey
-    out[2] = ff[2] + kh * _wrap(dth)
+    out[2] = ff[2] + kh * wrap(dth)
 
 
 @kernel
@@ -211,7 +206,7 @@ def steered_law(pose, ref, ff, gains, size, done, out):
     ex_w, ey_w = ref[0] - pose[0], ref[1] - pose[1]
     fx = gains[0] * (c * ex_w + s * ey_w)
     fy = gains[0] * (-s * ex_w + c * ey_w)
-    fw = gains[1] * _wrap(dth)
+    fw = gains[1] * wrap(dth)
     if not done:
         speed = math.hypot(ff[0], ff[1]) + size * abs(ff[2])
         fb = math.hypot(fx, fy) + size * abs(fw)
@@ -242,7 +237,7 @@ def kanayama_law(pose, ref, ff, gains, frame, out):
     cb, sb = math.cos(bth), math.sin(bth)
     ex = cb * (rx - bx) + sb * (ry - by)
     ey = -sb * (rx - bx) + cb * (ry - by)
-    eth = _wrap(rth - bth)
+    eth = wrap(rth - bth)
     # reference speed of the tracked point along its direction, and turn rate
     vpx = ff[0] - ff[2] * gy
     vpy = ff[1] + ff[2] * gx

@@ -14,6 +14,7 @@ import numpy as np
 from sim.jit import physics
 
 
+@physics
 def wrap(a):
     """Angle(s) ``a`` (rad, scalar or array) wrapped to [-pi, pi)."""
     return (a + math.pi) % (2.0 * math.pi) - math.pi
