@@ -172,6 +172,71 @@ class _Checks:
                          f"allowed {math.degrees(tol['heading']):g}")
         return CheckResult(bool(ok), "odometry: " + "; ".join(parts), c.line)
 
+    # -- clearance to the scenario's floor (sim.runs.clearance) ----------------
+    def _clearance_above(self, c, row, res, _):
+        thr = c.params["threshold"]
+        cl = self._clearance(c, row, res)
+        if isinstance(cl, CheckResult):
+            return cl
+        n = cl.nearest
+        if n is None:
+            return CheckResult(True, f"clearance above {thr:g} m: the floor has no features", c.line)
+        when = f"at t={c.at:g} s" if row is not None else f"smallest at t={n.t:g} s"
+        text = (f"clearance above {thr:g} m: {n.distance:.4g} m to '{n.feature}' {when}, base point "
+                f"({n.body_point[0]:.3f}, {n.body_point[1]:.3f}) m (body frame), feature point "
+                f"({n.feature_point[0]:.3f}, {n.feature_point[1]:.3f}) m")
+        if row is None:
+            text += "; " + ("no contact" if cl.first_contact is None else self._contact_text(cl))
+        return CheckResult(bool(n.distance > thr), text, c.line)
+
+    def _no_contact(self, c, row, res, _):
+        cl = self._clearance(c, row, res)
+        if isinstance(cl, CheckResult):
+            return cl
+        when = f" at t={c.at:g} s" if row is not None else ""
+        n = cl.nearest
+        near = f"; smallest clearance {n.distance:.4g} m to '{n.feature}' at t={n.t:g} s" if n and row is None else ""
+        return CheckResult(cl.first_contact is None, f"no contact{when}: {self._contact_text(cl)}{near}", c.line)
+
+    def _contact_text(self, cl) -> str:
+        f = cl.first_contact
+        if f is None:
+            return "none"
+        return (f"first contact with '{f.feature}' at t={f.t:g} s at ({f.point[0]:.3f}, {f.point[1]:.3f}) m, "
+                f"{cl.contact_rows} rows ({cl.contact_rows * self.scen.step:g} s) in contact")
+
+    def _clearance(self, c, row, res):
+        """The clearance at ``row`` (a check at a time) or over the whole run (measured once).
+
+        Over the run the poses come from the kept trace when it holds every row,
+        else the run is computed again (same input, same rows, a chunk at a
+        time: memory stays flat).  An interrupted run without a kept trace is
+        not measured again.
+        """
+        from sim.runs.clearance import ClearanceMeter, clearance_along
+
+        outline = self.scen.robot.outline
+        if row is not None:
+            return clearance_along(outline, np.asarray(row.pose, float)[None], self.scen.floor,
+                                   t=np.array([float(row.t)]))
+        cached = self.__dict__.get("clearance_result")
+        if cached is not None:
+            return cached
+        tr = res.trace
+        full = tr is not None and len(tr["t"]) == res.rows
+        if res.interrupted and not full:
+            return CheckResult(False, f"{c.kind}: not measured, the run was interrupted", c.line)
+        meter = ClearanceMeter(outline, self.scen.floor)
+        if full:
+            meter.add(tr["t"], np.column_stack([tr["x"], tr["y"], tr["theta"]]))
+        else:
+            from dataclasses import replace
+            again = replace(self.scen, checks=(), odometry=None)
+            for block, _ in _blocks(again, None, None):
+                meter.add(block.t, block.pose)
+        self.clearance_result = meter.result()
+        return self.clearance_result
+
 
 def apply_command(sim: Simulator, cmd) -> None:
     """Apply one script :class:`~sim.scenario.Command` to a simulator."""
