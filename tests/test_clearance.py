@@ -95,9 +95,33 @@ def test_rectangle_passing_a_wall_at_a_known_offset(tmp_path, scenario_from_yaml
     above, above_more, none = res.checks
     assert above.passed and not above_more.passed and none.passed
     assert "0.1234 m to 'north'" in above.text and "no contact" in above.text
-    # without a kept trace the check measures the run again: the same result
+    # the checks measure every row as the run goes, with or without a kept trace
     again = run_scenario(scen)
     assert [c.text for c in again.checks] == [c.text for c in res.checks]
+
+
+def test_clearance_checks_of_a_run_a_controller_drives(tmp_path, scenario_from_yaml):
+    # no script: a controller in the loop commands the base (0.4 m/s forward, then turning
+    # left from t = 1 s); the checks measure the rows the run made, as it made them
+    class Turner:
+        def command(self, obs):
+            return (0.4, 0.0, 0.0) if obs.t < 1.0 else (0.4, 0.0, 0.6)
+
+    floor = geojson(feat("wall", "LineString", [[-1, 0.5], [3, 0.5]]))
+    scen = scenario(tmp_path, scenario_from_yaml, """
+        robot: plain.yaml
+        floor: floor.geojson
+        step: 0.01
+        duration: 3
+        checks: [{no_contact: true}, {clearance_above: 0.0}]
+    """, floor)
+    res = run_scenario(scen, keep=True, controller=Turner())
+    cl = clearance_along(scen.robot.outline, poses_of(res.trace), scen.floor, t=res.trace["t"])
+    assert cl.first_contact is not None and 1.0 < cl.first_contact.t < 3.0
+    touch, clear = res.checks
+    assert not touch.passed and not clear.passed
+    assert f"first contact with 'wall' at t={cl.first_contact.t:g} s" in touch.text
+    assert f"{cl.contact_rows} rows" in touch.text
 
 
 def test_clearance_of_a_turned_rectangle_is_the_support_function(robot_from_yaml):

@@ -67,6 +67,15 @@ class _Checks:
         for c in scen.checks:
             if c.at is not None:
                 self.at_rows[int(round(c.at / scen.step))] = None
+        self.meter = None  # clearance to the floor over the run, measured as the blocks go by
+        if any(c.kind in ("clearance_above", "no_contact") and c.at is None for c in scen.checks):
+            from sim.runs.clearance import ClearanceMeter
+            self.meter = ClearanceMeter(scen.robot.outline, scen.floor)
+
+    def observe(self, block) -> None:
+        """Take one block of rows (consumed now: the engine reuses its buffer)."""
+        if self.meter is not None:
+            self.meter.add(block.t, block.pose)
 
     def evaluate(self, res: RunResult, odo_summary) -> list:
         out = []
@@ -176,8 +185,6 @@ class _Checks:
     def _clearance_above(self, c, row, res, _):
         thr = c.params["threshold"]
         cl = self._clearance(c, row, res)
-        if isinstance(cl, CheckResult):
-            return cl
         n = cl.nearest
         if n is None:
             return CheckResult(True, f"clearance above {thr:g} m: the floor has no features", c.line)
@@ -187,16 +194,20 @@ class _Checks:
                 f"({n.feature_point[0]:.3f}, {n.feature_point[1]:.3f}) m")
         if row is None:
             text += "; " + ("no contact" if cl.first_contact is None else self._contact_text(cl))
+            text += self._partial(res)
         return CheckResult(bool(n.distance > thr), text, c.line)
 
     def _no_contact(self, c, row, res, _):
         cl = self._clearance(c, row, res)
-        if isinstance(cl, CheckResult):
-            return cl
         when = f" at t={c.at:g} s" if row is not None else ""
         n = cl.nearest
         near = f"; smallest clearance {n.distance:.4g} m to '{n.feature}' at t={n.t:g} s" if n and row is None else ""
-        return CheckResult(cl.first_contact is None, f"no contact{when}: {self._contact_text(cl)}{near}", c.line)
+        part = self._partial(res) if row is None else ""
+        return CheckResult(cl.first_contact is None, f"no contact{when}: {self._contact_text(cl)}{near}{part}", c.line)
+
+    @staticmethod
+    def _partial(res) -> str:
+        return f" (over the {res.rows} rows before the run was interrupted)" if res.interrupted else ""
 
     def _contact_text(self, cl) -> str:
         f = cl.first_contact
@@ -206,36 +217,17 @@ class _Checks:
                 f"{cl.contact_rows} rows ({cl.contact_rows * self.scen.step:g} s) in contact")
 
     def _clearance(self, c, row, res):
-        """The clearance at ``row`` (a check at a time) or over the whole run (measured once).
+        """The clearance at ``row`` (a check at a time), or over every row the run made
+        (measured block by block as the run went: any run, scripted or controlled)."""
+        from sim.runs.clearance import clearance_along
 
-        Over the run the poses come from the kept trace when it holds every row,
-        else the run is computed again (same input, same rows, a chunk at a
-        time: memory stays flat).  An interrupted run without a kept trace is
-        not measured again.
-        """
-        from sim.runs.clearance import ClearanceMeter, clearance_along
-
-        outline = self.scen.robot.outline
         if row is not None:
-            return clearance_along(outline, np.asarray(row.pose, float)[None], self.scen.floor,
+            return clearance_along(self.scen.robot.outline, np.asarray(row.pose, float)[None], self.scen.floor,
                                    t=np.array([float(row.t)]))
         cached = self.__dict__.get("clearance_result")
-        if cached is not None:
-            return cached
-        tr = res.trace
-        full = tr is not None and len(tr["t"]) == res.rows
-        if res.interrupted and not full:
-            return CheckResult(False, f"{c.kind}: not measured, the run was interrupted", c.line)
-        meter = ClearanceMeter(outline, self.scen.floor)
-        if full:
-            meter.add(tr["t"], np.column_stack([tr["x"], tr["y"], tr["theta"]]))
-        else:
-            from dataclasses import replace
-            again = replace(self.scen, checks=(), odometry=None)
-            for block, _ in _blocks(again, None, None):
-                meter.add(block.t, block.pose)
-        self.clearance_result = meter.result()
-        return self.clearance_result
+        if cached is None:
+            cached = self.clearance_result = self.meter.result()
+        return cached
 
 
 def apply_command(sim: Simulator, cmd) -> None:
@@ -393,6 +385,7 @@ def _account(res: RunResult, checks, block, last_pos) -> None:
     """Fold one block of rows into the running summary."""
     m = len(block)
     checks.last = block.row(m - 1)
+    checks.observe(block)
     for k in checks.at_rows:
         if block.k0 <= k < block.k0 + m:
             checks.at_rows[k] = block.row(k - block.k0)
