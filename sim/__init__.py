@@ -19,6 +19,8 @@ _API = {
     "Robot": "model.robot", "Wheel": "model.robot", "load_robot": "files.robotfile",
     "RunResult": "runs.runner", "run_scenario": "runs.runner",
     "Scenario": "files.scenario", "load_scenario": "files.scenario",
+    "Floor": "model.floor", "load_floor": "files.floorfile",
+    "clearance_along": "runs.clearance", "ClearanceMeter": "runs.clearance",
 }
 __all__ = [*_API, "__version__"]
 

@@ -28,7 +28,11 @@ times; the table shows the median.  Cases:
    process (standard library socket and json), beside the engine's own single-step
    rate (``Simulator.step`` in a loop) and a bare standard-library line echo on the
    same loopback, the two floors it stands on;
-11. the same server with ``steps: 100``: engine steps per second.
+11. the same server with ``steps: 100``: engine steps per second;
+12. clearance of a 100,000-row run (the four-module base weaving along a 50 m corridor, dt
+    1 ms) against 200 wall segments: the nearest approach to every segment and the first
+    contact (what the checks compute), then the same with the swept area; and the peak memory
+    the measuring adds over 10^5 and 10^6 rows fed in chunks (flat: it keeps only minima).
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.
@@ -75,6 +79,19 @@ def _write_cases(folder: str, duration: float = 1000.0) -> None:
                           for i in range(720)]
     with open(os.path.join(folder, "hour.yaml"), "w") as fh:
         fh.write("\n".join(hour) + "\n")
+    lines = [f"robot: {os.path.join(ROBOTS, 'quad-steer.yaml')}", "floor: corridor.geojson", "step: 0.001",
+             "duration: 99.999", "start: {x: -24, y: 0}", "script:"]
+    for i in range(50):                     # weaving: the heading swings +-0.08 rad and back
+        w = (1, -1, -1, 1)[i % 4] * 0.04
+        lines.append(f"  - {{at: {2 * i}, twist: {{vx: 0.45, vy: 0, omega: {w}}}}}")
+    walls = ",\n".join(
+        f'{{"type": "Feature", "properties": {{"name": "{side}-{i}"}}, "geometry": {{"type": "LineString", '
+        f'"coordinates": [[{-25 + 0.5 * i}, {y}], [{-24.5 + 0.5 * i}, {y}]]}}}}'
+        for side, y in (("north", 0.9), ("south", -0.9)) for i in range(100))
+    with open(os.path.join(folder, "corridor.geojson"), "w") as fh:
+        fh.write('{"type": "FeatureCollection", "features": [\n' + walls + "\n]}\n")
+    with open(os.path.join(folder, "weave.yaml"), "w") as fh:
+        fh.write("\n".join(lines) + "\n")
     batch = os.path.join(folder, "batch")
     os.makedirs(batch, exist_ok=True)
     names = ["ward-cart", "tote-mecanum", "quad-steer", "greenhouse-rover", "camera-dolly"]
@@ -197,6 +214,36 @@ def _one(case: str, folder: str) -> dict:
             sim.advance(1000)
             times.append(time.perf_counter() - t)
         return {"steps": 1000, "wall": times[0], "steady": times[1], "imports": imports, "peak_mb": _peak_mb()}
+    if case == "12":
+        import numpy as np
+        import tracemalloc
+        from sim.runs.clearance import ClearanceMeter, clearance_along
+        scen = load_scenario(os.path.join(folder, "weave.yaml"))
+        tr = run_scenario(scen, keep=True).trace
+        poses = np.column_stack([tr["x"], tr["y"], tr["theta"]])
+        out = {"steps": len(poses)}
+        clearance_along(scen.robot.outline, poses[:100], scen.floor, swept=True)   # load shapely, numba
+        t, c = time.perf_counter(), time.process_time()
+        cl = clearance_along(scen.robot.outline, poses, scen.floor, t=tr["t"])
+        out["wall"], out["cpu"] = time.perf_counter() - t, time.process_time() - c
+        out["nearest"] = [cl.nearest.distance, cl.nearest.feature, cl.contact_rows]
+        t = time.perf_counter()
+        cl = clearance_along(scen.robot.outline, poses, scen.floor, t=tr["t"], swept=True)
+        out["swept_wall"] = time.perf_counter() - t
+        out["swept_area"] = cl.swept_area
+        del tr, poses, cl
+        # memory the measuring adds, rows fed in chunks of 20,000 (a run's blocks)
+        for rows in (100_000, 1_000_000):
+            meter = ClearanceMeter(scen.robot.outline, scen.floor)
+            tracemalloc.start()
+            for k in range(0, rows, 20_000):
+                tt = np.arange(k, k + 20_000) * 0.001
+                p = np.column_stack([tt * 0.45 - 24 - 45 * (tt // 100), 0.3 * np.sin(tt), 0.1 * np.cos(tt)])
+                meter.add(tt, p)
+            out[f"mem_{rows}"] = tracemalloc.get_traced_memory()[1] / 1e6
+            tracemalloc.stop()
+        out["peak_mb"] = _peak_mb()
+        return out
     if case == "6":
         scen = load_scenario(os.path.join(folder, "hour.yaml"))
         csv = os.path.join(folder, "hour.csv")
@@ -395,6 +442,14 @@ def main(argv=None) -> int:
             wall = med([_timed(cmd) for _ in range(max(3, args.repeat))])
             rows.append({"case": "9", "label": "trundle route, demo route, 3 bases (process)",
                          "steps": 0, "wall_s": wall, "steps_per_s": float("nan"), "peak_mb": float("nan")})
+        if "12" not in skip:
+            runs = [_sub("12", folder) for _ in range(args.repeat)]
+            r = runs[0]
+            rows.append({"case": "12", "label": "clearance, 1e5 rows x 200 wall segments", "steps": r["steps"],
+                         "wall_s": med([x["wall"] for x in runs]), "steps_per_s": float("nan"),
+                         "peak_mb": max(x["peak_mb"] for x in runs), "cpu_s": med([x["cpu"] for x in runs]),
+                         "swept_s": med([x["swept_wall"] for x in runs]), "swept_area": r["swept_area"],
+                         "nearest": r["nearest"], "mem": (r["mem_100000"], r["mem_1000000"])})
         if "6" not in skip:
             r = _sub("6", folder)
             rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],
@@ -449,6 +504,11 @@ def main(argv=None) -> int:
             print(f"case 11 {r['steps_per_s']:,.0f} steps/s through the server "
                   f"({r['steps_per_s'] / e['per_s']:.0%} of Simulator.step alone); server CPU per request "
                   f"{r['server_cpu_us']:,.0f} us for 100 steps")
+        if r["case"] == "12":
+            d, name, contact = r["nearest"]
+            print(f"case 12 CPU time {r['cpu_s']:.2f} s; nearest approach {d:.4f} m to {name} ({contact} rows in "
+                  f"contact); with the swept area ({r['swept_area']:.2f} m^2): {r['swept_s']:.2f} s; memory the "
+                  f"measuring adds: {r['mem'][0]:.1f} MB over 1e5 rows, {r['mem'][1]:.1f} MB over 1e6 rows")
     return 0
 
 

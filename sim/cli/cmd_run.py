@@ -74,6 +74,7 @@ def run(args) -> int:
         print(summary_text(res))
         if controller is not None and scen.script:
             print("note      the scenario's script was not used: the controller commanded the base")
+        _floor_note(scen)
         if args.png:
             print(f"picture   {args.png}" + (f" (at t = {at_step(scen, args.at) * scen.step:g} s)"
                                              if args.at is not None else ""))
@@ -84,6 +85,13 @@ def run(args) -> int:
     if res.interrupted:
         return 130
     return 0 if res.passed else 1
+
+
+def _floor_note(scen) -> None:
+    """Say how to measure clearance when the scenario has a floor but no check uses it."""
+    if scen.floor is not None and not any(c.kind in ("clearance_above", "no_contact") for c in scen.checks):
+        print(f"floor     {len(scen.floor)} features; add a check 'no_contact: true' or "
+              "'clearance_above: D' to measure the clearance (--png draws it)")
 
 
 def _run_baseline(args, scen, controller=None) -> int:
@@ -104,6 +112,7 @@ def _run_baseline(args, scen, controller=None) -> int:
         _print_json(d)
     else:
         print(summary_text(res))
+        _floor_note(scen)
         print(rep.text("baseline", "run"))
         for n in notes:
             print(f"note      {n}")

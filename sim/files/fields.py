@@ -179,6 +179,17 @@ def name(value, where: Where) -> str:
     return value
 
 
+def geometry_problem(geom) -> str:
+    """Why a shapely geometry is not valid, from GEOS, with its point written ``(x, y)``."""
+    import shapely
+
+    reason = shapely.is_valid_reason(geom)
+    m = re.match(r"^(.*?)\s*\[([-+0-9.eE]+) ([-+0-9.eE]+)\]$", reason or "")
+    if m:
+        return f"{m.group(1).lower()} at ({float(m.group(2)):g}, {float(m.group(3)):g})"
+    return (reason or "invalid").lower()
+
+
 def cell_number(cell: str, source: str, line: int, column: str, unit: str = "") -> float:
     """A finite number from a CSV cell, or InputError ``source:line: column 'c': ...``."""
     try:

@@ -57,15 +57,25 @@ def _robot(data, where: F.Where, source: str) -> Robot:
     data = F.expect_map(data, where, "a robot description (a mapping with name, footprint, wheels)")
     F.check_keys(data, _ROBOT_KEYS, where, required=("wheels",))
     name = F.name(data["name"], where.at(data, "name")) if "name" in data else "robot"
-    length, width, fx, fy = 0.6, 0.4, 0.0, 0.0
+    length, width, fx, fy, polygon = 0.6, 0.4, 0.0, 0.0, None
     if "footprint" in data:
         fw = where.at(data, "footprint")
-        fp = F.expect_map(data["footprint"], fw, "a mapping {length, width, x, y}")
-        F.check_keys(fp, ("length", "width", "x", "y"), fw, required=("length", "width"))
-        length = F.number(fp["length"], fw.at(fp, "length"), positive=True, unit="m")
-        width = F.number(fp["width"], fw.at(fp, "width"), positive=True, unit="m")
-        fx = F.number(fp.get("x", 0.0), fw.at(fp, "x"), unit="m")
-        fy = F.number(fp.get("y", 0.0), fw.at(fp, "y"), unit="m")
+        fp = F.expect_map(data["footprint"], fw, "a mapping {length, width, x, y} or {polygon}")
+        if "polygon" in fp:
+            other = [k for k in fp if k != "polygon"]
+            if other:
+                raise fw.at(fp, other[0]).error(
+                    f"a footprint is either {{length, width, x, y}} or {{polygon}}, not both ('{other[0]}' and 'polygon')")
+            polygon = footprint_polygon(fp["polygon"], fw.at(fp, "polygon"))
+            xs, ys = [p[0] for p in polygon], [p[1] for p in polygon]
+            length, width = max(xs) - min(xs), max(ys) - min(ys)
+            fx, fy = (max(xs) + min(xs)) / 2, (max(ys) + min(ys)) / 2
+        else:
+            F.check_keys(fp, ("length", "width", "x", "y", "polygon"), fw, required=("length", "width"))
+            length = F.number(fp["length"], fw.at(fp, "length"), positive=True, unit="m")
+            width = F.number(fp["width"], fw.at(fp, "width"), positive=True, unit="m")
+            fx = F.number(fp.get("x", 0.0), fw.at(fp, "x"), unit="m")
+            fy = F.number(fp.get("y", 0.0), fw.at(fp, "y"), unit="m")
     ww = where.at(data, "wheels")
     items = F.expect_list(data["wheels"], ww, "a list of wheels")
     if not items:
@@ -78,7 +88,38 @@ def _robot(data, where: F.Where, source: str) -> Robot:
         seen[w.name] = w.line
         wheels.append(w)
     return Robot(name=name, wheels=tuple(wheels), length=length, width=width, source=source,
-                 footprint_x=fx, footprint_y=fy)
+                 footprint_x=fx, footprint_y=fy, polygon=polygon)
+
+
+def footprint_polygon(value, where: F.Where) -> tuple:
+    """A footprint polygon: a list of [x, y] (m, body frame), at least 3 vertices, simple.
+
+    Returns a tuple of (x, y) tuples, counter-clockwise, without a repeated
+    closing vertex.
+    """
+    import shapely
+
+    items = F.expect_list(value, where, "a list of [x, y] vertices (m, body frame)")
+    pts = []
+    for i, item in enumerate(items):
+        w = where.at(items, i)
+        pair = F.expect_list(item, w, "a vertex [x, y] (m)")
+        if len(pair) != 2:
+            raise w.error(f"a vertex is [x, y] (2 numbers, m), got {len(pair)} values")
+        pts.append((F.number(pair[0], w.at(pair, 0), unit="m"), F.number(pair[1], w.at(pair, 1), unit="m")))
+    if len(pts) > 1 and pts[0] == pts[-1]:
+        pts.pop()                                     # a closing vertex repeating the first is allowed
+    if len(pts) < 3:
+        raise where.error(f"a footprint polygon needs at least 3 distinct vertices, got {len(pts)}")
+    poly = shapely.Polygon(pts)
+    if not poly.is_valid:
+        raise where.error(f"the footprint polygon is not simple ({F.geometry_problem(poly)}); "
+                          "list the vertices in order around the outline, edges must not cross")
+    if not poly.area > 0:
+        raise where.error("the footprint polygon has no area")
+    if not shapely.is_ccw(poly.exterior):
+        pts.reverse()
+    return tuple(pts)
 
 
 def plausibility(robot: Robot, data, where: F.Where) -> None:

@@ -22,9 +22,9 @@ from sim.files.yamlread import load_file
 MAX_STEPS = 10 ** 9
 _KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "skid", "script",
          "commands", "route", "controller", "checks", "odometry", "control_period", "observe_truth",
-         "description")
+         "floor", "description")
 CHECK_KINDS = ("pose", "slip_below", "slip_above", "wheel", "odometry_error_below", "arrive_within",
-               "tracking_error_below")
+               "tracking_error_below", "clearance_above", "no_contact")
 
 
 @dataclass(frozen=True)
@@ -51,7 +51,9 @@ class Check:
     (threshold m/s, over the run or at ``at``), ``wheel`` (at, name, steer
     and/or spin with tolerances), ``odometry_error_below`` (position m, heading rad),
     ``arrive_within`` (time s, tolerance (position m, heading rad) or None: the route's),
-    ``tracking_error_below`` (threshold m, after s).
+    ``tracking_error_below`` (threshold m, after s), ``clearance_above`` (threshold m, over
+    the run or at ``at``), ``no_contact`` (over the run or at ``at``; both need the scenario's
+    ``floor``).
     end : the file said ``at: end`` (``at`` is then the duration; a run that a
     controller or client ends early checks its last row instead).
     """
@@ -96,6 +98,7 @@ class Scenario:
     control_period: float | None = None
     observe_truth: bool = False
     scripted: bool = True
+    floor: object = None
 
     @property
     def steps(self) -> int:
@@ -187,11 +190,15 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         if c.at > duration + 1e-12:
             raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
                              f"({duration:g} s); shorten the script or lengthen 'duration'")
+    floor = _floor(data["floor"], at("floor"), base_dir) if "floor" in data else None
     checks = _checks(data.get("checks", []), at("checks"), robot, duration) if "checks" in data else ()
     for c in checks:
         if c.kind in ("arrive_within", "tracking_error_below") and route is None \
                 and not any(e.kind == "goto" for e in script):
             raise InputError(where.source, c.line, f"{c.kind} needs a 'route' or 'goto' entries in the script")
+        if c.kind in ("clearance_above", "no_contact") and floor is None:
+            raise InputError(where.source, c.line, f"check '{c.kind}' needs a floor: add 'floor: FILE.geojson' "
+                             "(or an inline mapping of walls and shelves) to the scenario")
     odometry = None
     if "odometry" in data:
         from sim.files.odometryfile import odometry_from_data  # optional feature, own module
@@ -209,7 +216,8 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     truth = F.boolean(data["observe_truth"], at("observe_truth")) if "observe_truth" in data else False
     return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
                     source, robot_hash, scen_hash, odometry, desc, skid, warnings, route, plan, controller,
-                    headroom, period, truth, "script" in data or "commands" in data or "route" in data)
+                    headroom, period, truth, "script" in data or "commands" in data or "route" in data,
+                    floor)
 
 
 def _route(value, where, base_dir, robot, start, headroom):
@@ -294,6 +302,20 @@ def _robot(value, where, base_dir):
         robot = robot_from_data(value, where.source, where)
         return robot, _hash_bytes(repr(sorted(value.items())).encode())
     raise where.error(f"expected a robot file path or an inline robot mapping, got {F.describe(value)}")
+
+
+def _floor(value, where, base_dir):
+    """The scenario's floor: a GeoJSON / YAML floor file, or an inline mapping of features."""
+    from sim.files.floorfile import floor_from_data, load_floor  # optional feature, own module
+    if isinstance(value, str):
+        path = value if os.path.isabs(value) else os.path.join(base_dir, value)
+        if not os.path.isfile(path):
+            raise where.error(f"floor file '{value}' not found (looked for {os.path.normpath(path)})")
+        return load_floor(os.path.relpath(path) if not os.path.isabs(value) else path)
+    if isinstance(value, dict):
+        return floor_from_data(value, where)
+    raise where.error("expected a floor file path (GeoJSON .geojson, or .yaml) or an inline mapping "
+                      f"of feature name to {{line: ...}} or {{polygon: ...}}, got {F.describe(value)}")
 
 
 def _time(value, where, what="at") -> float:
@@ -477,6 +499,15 @@ def _checks(items, where, robot, duration):
             F.check_keys(item, (kind, "at"), w)
             thr = F.number(item[kind], w.at(item, kind), nonnegative=True, unit="m/s")
             out.append(Check(kind, _check_time(item, w, duration), {"threshold": thr}, w.line))
+        elif kind == "clearance_above":
+            F.check_keys(item, (kind, "at"), w)
+            thr = F.number(item[kind], w.at(item, kind), nonnegative=True, unit="m")
+            out.append(Check(kind, _check_time(item, w, duration), {"threshold": thr}, w.line))
+        elif kind == "no_contact":
+            F.check_keys(item, (kind, "at"), w)
+            if F.boolean(item[kind], w.at(item, kind)) is not True:
+                raise w.at(item, kind).error("write 'no_contact: true' (or leave the check out)")
+            out.append(Check(kind, _check_time(item, w, duration), {}, w.line))
         elif kind == "wheel":
             F.check_keys(item, ("at", "wheel", "steer", "spin", "tolerance"), w, required=("at", "tolerance"))
             t = _check_time(item, w, duration)

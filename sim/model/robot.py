@@ -92,10 +92,14 @@ class Wheel:
 
 @dataclass(frozen=True)
 class Robot:
-    """A wheeled base: a name, a footprint for drawing, and its wheels in file order.
+    """A wheeled base: a name, a footprint, and its wheels in file order.
 
     The footprint is a ``length`` x ``width`` rectangle (m) centred at body
-    point (``footprint_x``, ``footprint_y``), for drawing only.  ``warnings``:
+    point (``footprint_x``, ``footprint_y``), or, when ``polygon`` is given, that
+    polygon: a tuple of (x, y) vertices (m, body frame, counter-clockwise, not
+    repeating the first); ``length``, ``width`` and the centre are then its
+    bounding box.  :attr:`outline` gives either as an array.  It is drawn, and
+    checked against a floor's features (:mod:`sim.runs.clearance`).  ``warnings``:
     plausibility warnings from reading its file (objects whose ``str`` is
     ``file:line: warning: message``).
     """
@@ -108,6 +112,19 @@ class Robot:
     footprint_x: float = 0.0
     footprint_y: float = 0.0
     warnings: tuple = field(default=(), compare=False, repr=False)
+    polygon: tuple | None = None
+
+    @cached_property
+    def outline(self) -> np.ndarray:
+        """The footprint's vertices, shape (k, 2), m, body frame, counter-clockwise (read-only)."""
+        if self.polygon is not None:
+            pts = np.array(self.polygon, dtype=float)
+        else:
+            L, W = self.length / 2, self.width / 2
+            pts = np.array([(L, -W), (L, W), (-L, W), (-L, -W)], dtype=float)
+            pts += (self.footprint_x, self.footprint_y)
+        pts.flags.writeable = False
+        return pts
 
     def wheel(self, name: str) -> Wheel:
         for w in self.wheels:

@@ -67,6 +67,15 @@ class _Checks:
         for c in scen.checks:
             if c.at is not None:
                 self.at_rows[int(round(c.at / scen.step))] = None
+        self.meter = None  # clearance to the floor over the run, measured as the blocks go by
+        if any(c.kind in ("clearance_above", "no_contact") and c.at is None for c in scen.checks):
+            from sim.runs.clearance import ClearanceMeter
+            self.meter = ClearanceMeter(scen.robot.outline, scen.floor)
+
+    def observe(self, block) -> None:
+        """Take one block of rows (consumed now: the engine reuses its buffer)."""
+        if self.meter is not None:
+            self.meter.add(block.t, block.pose)
 
     def evaluate(self, res: RunResult, odo_summary) -> list:
         out = []
@@ -171,6 +180,54 @@ class _Checks:
             parts.append(f"peak heading error {math.degrees(odo['peak_heading_error']):.4g} deg, "
                          f"allowed {math.degrees(tol['heading']):g}")
         return CheckResult(bool(ok), "odometry: " + "; ".join(parts), c.line)
+
+    # -- clearance to the scenario's floor (sim.runs.clearance) ----------------
+    def _clearance_above(self, c, row, res, _):
+        thr = c.params["threshold"]
+        cl = self._clearance(c, row, res)
+        n = cl.nearest
+        if n is None:
+            return CheckResult(True, f"clearance above {thr:g} m: the floor has no features", c.line)
+        when = f"at t={c.at:g} s" if row is not None else f"smallest at t={n.t:g} s"
+        text = (f"clearance above {thr:g} m: {n.distance:.4g} m to '{n.feature}' {when}, base point "
+                f"({n.body_point[0]:.3f}, {n.body_point[1]:.3f}) m (body frame), feature point "
+                f"({n.feature_point[0]:.3f}, {n.feature_point[1]:.3f}) m")
+        if row is None:
+            text += "; " + ("no contact" if cl.first_contact is None else self._contact_text(cl))
+            text += self._partial(res)
+        return CheckResult(bool(n.distance > thr), text, c.line)
+
+    def _no_contact(self, c, row, res, _):
+        cl = self._clearance(c, row, res)
+        when = f" at t={c.at:g} s" if row is not None else ""
+        n = cl.nearest
+        near = f"; smallest clearance {n.distance:.4g} m to '{n.feature}' at t={n.t:g} s" if n and row is None else ""
+        part = self._partial(res) if row is None else ""
+        return CheckResult(cl.first_contact is None, f"no contact{when}: {self._contact_text(cl)}{near}{part}", c.line)
+
+    @staticmethod
+    def _partial(res) -> str:
+        return f" (over the {res.rows} rows before the run was interrupted)" if res.interrupted else ""
+
+    def _contact_text(self, cl) -> str:
+        f = cl.first_contact
+        if f is None:
+            return "none"
+        return (f"first contact with '{f.feature}' at t={f.t:g} s at ({f.point[0]:.3f}, {f.point[1]:.3f}) m, "
+                f"{cl.contact_rows} rows ({cl.contact_rows * self.scen.step:g} s) in contact")
+
+    def _clearance(self, c, row, res):
+        """The clearance at ``row`` (a check at a time), or over every row the run made
+        (measured block by block as the run went: any run, scripted or controlled)."""
+        from sim.runs.clearance import clearance_along
+
+        if row is not None:
+            return clearance_along(self.scen.robot.outline, np.asarray(row.pose, float)[None], self.scen.floor,
+                                   t=np.array([float(row.t)]))
+        cached = self.__dict__.get("clearance_result")
+        if cached is None:
+            cached = self.clearance_result = self.meter.result()
+        return cached
 
 
 def apply_command(sim: Simulator, cmd) -> None:
@@ -328,6 +385,7 @@ def _account(res: RunResult, checks, block, last_pos) -> None:
     """Fold one block of rows into the running summary."""
     m = len(block)
     checks.last = block.row(m - 1)
+    checks.observe(block)
     for k in checks.at_rows:
         if block.k0 <= k < block.k0 + m:
             checks.at_rows[k] = block.row(k - block.k0)

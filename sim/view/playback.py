@@ -80,7 +80,7 @@ def view_run(scen, csv=None, every=1, window=False, png=None, frames=None, fps=3
     size = size or render.DEFAULT_SIZE
     name = os.path.basename(scen.source)
     rd = render.Renderer(scen.robot, size, name, align=scen.align, step=scen.step,
-                         align_tolerance=scen.align_tolerance)
+                         align_tolerance=scen.align_tolerance, floor=scen.floor)
     if scen.plan is not None:
         rd.set_route(scen.plan.path.xy, scen.route.waypoints, scen.plan)
     elif any(c.kind == "goto" for c in scen.script):

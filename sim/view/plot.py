@@ -16,6 +16,13 @@ is overlaid in dotted lines and named in the legends and slip labels; its
 wheels are drawn only where the first trace has a wheel of the same name
 (:func:`unshown_wheels` lists the rest).  Legends sit in a strip along the top
 of each panel, above the data.
+
+With a floor and the base's footprint (``trundle plot --floor F --robot R``),
+the path panel also shows the floor's features, the area the first trace's
+base swept (translucent) and the closest pair of points between base and
+floor with the distance; a first contact is marked in vermillion.  The
+clearance is measured on every row (:class:`sim.runs.clearance.ClearanceMeter`,
+fed block by block while the trace is read), not on the thinned rows.
 """
 from __future__ import annotations
 
@@ -55,6 +62,7 @@ class Trace:
     peak_slip: float = math.nan
     peak_t: float = math.nan
     label: str = field(default="")
+    clearance: object = None
 
     def __getitem__(self, name):
         return self.data[name]
@@ -63,11 +71,12 @@ class Trace:
         return name in self.data and bool(np.any(np.isfinite(self.data[name])))
 
 
-def read_trace(path, max_rows: int = 20000) -> Trace:
+def read_trace(path, max_rows: int = 20000, on_block=None) -> Trace:
     """Read a trace CSV (see README "Traces").  Raises :class:`InputError`.
 
     Lines are read and checked by :class:`sim.tracecsv.TraceFile` (the reader
-    ``trundle diff`` uses), a block at a time.
+    ``trundle diff`` uses), a block at a time.  ``on_block(header, block)``,
+    if given, sees every block of rows (array (m, columns)) before thinning.
     """
     from sim.traces.csvread import CHUNK_BYTES, TraceFile, floats
 
@@ -97,6 +106,8 @@ def read_trace(path, max_rows: int = 20000) -> Trace:
             blank = np.flatnonzero(np.isnan(block[:, ti]))
             if len(blank):
                 raise InputError(src, first + int(blank[0]), "column 't' is blank")
+            if on_block is not None:
+                on_block(header, block, first)
             if si is not None and np.any(np.isfinite(block[:, si])):
                 j = int(np.nanargmax(block[:, si]))
                 if block[j, si] > peak:
@@ -249,7 +260,7 @@ def _none(ax, text):
     ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color="#666666", fontsize=10)
 
 
-def figure(traces):
+def figure(traces, floor=None, clearance=None):
     """A matplotlib Figure of one or two :class:`Trace` objects (the second overlaid, dotted).
 
     Panels (``fig.trundle_axes`` names them): ``path`` (x-y path, heading ticks, start and end,
@@ -258,7 +269,9 @@ def figure(traces):
     ``turn`` (omega), ``spin`` and ``steer`` (per wheel, command dashed).  Each unit has its
     own panel, so no two curves of different units can land on each other; wheels (and vx,
     vy) with identical curves are drawn once with one legend entry naming them all.  Legends
-    sit along the top of their panels with the data kept below them.
+    sit along the top of their panels with the data kept below them.  ``floor`` (a
+    :class:`~sim.model.floor.Floor`) and ``clearance`` (a :class:`~sim.runs.clearance.Clearance`
+    of the first trace) add the floor, the swept area and the closest pair to the path panel.
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
@@ -309,9 +322,13 @@ def figure(traces):
                          label=f"odometry estimate{' ' + tr.label if len(traces) > 1 else ''}", zorder=2.5)
             box.append((np.nanmin(tr["odom_x"]), np.nanmax(tr["odom_x"]),
                         np.nanmin(tr["odom_y"]), np.nanmax(tr["odom_y"])))
+    if floor is not None:
+        box.append(_draw_floor(ax_path, floor, clearance, box))
     b = np.array(box)
     x0, x1, y0, y1 = b[:, 0].min(), b[:, 1].max(), b[:, 2].min(), b[:, 3].max()
     pad = 0.12 * max(x1 - x0, y1 - y0, 0.5)
+    if floor is not None:
+        pad = min(pad, 0.3)                 # the floor's features already frame the path
     lim = (x0 - pad, x1 + pad, y0 - pad, y1 + pad)
     for j, tr in enumerate(traces):
         if tr.has("icr_x"):
@@ -450,15 +467,108 @@ def figure(traces):
     return fig
 
 
-def plot_traces(path, out, compare=None, max_rows: int = 20000):
-    """Read ``path`` (and ``compare``), write the figure as PNG to ``out`` (through ``.part``)."""
-    traces = [read_trace(path, max_rows)]
+def _ring_path(rings):
+    """A matplotlib Path of a polygon's rings (exterior, holes), each (k, 2) m."""
+    from matplotlib.path import Path
+
+    verts, codes = [], []
+    for r in rings:
+        r = np.asarray(r, dtype=float)
+        verts += list(r) + [r[0]]
+        codes += [Path.MOVETO] + [Path.LINETO] * (len(r) - 1) + [Path.CLOSEPOLY]
+    return Path(np.array(verts), codes)
+
+
+FLOOR_FILL, FLOOR_EDGE, SWEPT = "#ACA8A0", "#403E3A", "#0072B2"
+
+
+def _draw_floor(ax, floor, clearance, box):
+    """Floor features, swept area, closest pair and first contact on ``ax``.
+
+    Returns the box (x0, x1, y0, y1) m of what should stay in view: the swept
+    area, the closest pair, and the features within 1 m of the path.
+    """
+    import shapely
+    from matplotlib.patches import PathPatch
+    from sim.runs.clearance import feature_geometry
+
+    b = np.array(box)
+    x0, x1, y0, y1 = b[:, 0].min(), b[:, 1].max(), b[:, 2].min(), b[:, 3].max()
+    pts = [(x0, y0), (x1, y1)]
+    near_box = shapely.box(x0 - 1.0, y0 - 1.0, x1 + 1.0, y1 + 1.0)
+    first_poly = first_line = True
+    for f in floor.features:
+        g = shapely.intersection(feature_geometry(f), near_box)
+        if not g.is_empty:
+            gx0, gy0, gx1, gy1 = g.bounds
+            pts += [(gx0, gy0), (gx1, gy1)]
+        if f.kind == "polygon":
+            for rings in f.parts:
+                ax.add_patch(PathPatch(_ring_path(rings), facecolor=FLOOR_FILL, edgecolor=FLOOR_EDGE, lw=1.2,
+                                       zorder=1.5, label="floor: solid feature" if first_poly else None))
+                first_poly = False
+        else:
+            for p in f.parts:
+                ax.plot(p[:, 0], p[:, 1], "-", color=FLOOR_EDGE, lw=2.2, zorder=1.5,
+                        label="floor: wall line" if first_line else None)
+                first_line = False
+    if clearance is None:
+        return _box_of(pts)
+    if clearance.swept is not None and not clearance.swept.is_empty:
+        first = True
+        for poly in shapely.get_parts(clearance.swept):
+            rings = [np.asarray(poly.exterior.coords)[:-1]] + [np.asarray(h.coords)[:-1] for h in poly.interiors]
+            ax.add_patch(PathPatch(_ring_path(rings), facecolor=SWEPT, alpha=0.18, edgecolor="none", zorder=0.5,
+                                   label=f"swept area {clearance.swept_area:.2f} m^2" if first else None))
+            first = False
+        sx0, sy0, sx1, sy1 = clearance.swept.bounds
+        pts += [(sx0, sy0), (sx1, sy1)]
+    n = clearance.nearest
+    if n is not None:
+        (ax_, ay), (bx, by) = n.base_point, n.feature_point
+        col = PEAK if n.distance <= 0 else "#1E1E1E"
+        ax.plot([ax_, bx], [ay, by], "-o", color=col, ms=5, mfc="white", lw=1.6, zorder=5,
+                label=f"closest: {n.distance * 1000:.0f} mm to {n.feature} at {n.t:g} s")
+        pts += [(ax_, ay), (bx, by)]
+    c = clearance.first_contact
+    if c is not None:
+        ax.plot([c.point[0]], [c.point[1]], "X", color=PEAK, ms=11, mec="white", zorder=6,
+                label=f"first contact: {c.feature} at {c.t:g} s")
+    return _box_of(pts)
+
+
+def _box_of(pts):
+    a = np.array(pts, dtype=float)
+    return (a[:, 0].min(), a[:, 0].max(), a[:, 1].min(), a[:, 1].max())
+
+
+def plot_traces(path, out, compare=None, max_rows: int = 20000, floor=None, outline=None):
+    """Read ``path`` (and ``compare``), write the figure as PNG to ``out`` (through ``.part``).
+
+    ``floor`` (:class:`~sim.model.floor.Floor`) with ``outline`` (the footprint,
+    (k, 2) m body frame) measures the first trace's clearance on every row and
+    draws it; the result is also kept as ``traces[0].clearance``.  Returns ``(figure, traces)``.
+    """
+    meter = None
+    if floor is not None:
+        from sim.runs.clearance import ClearanceMeter
+        meter = ClearanceMeter(outline, floor, swept=True)
+
+    def measure(header, block, first):
+        idx = [header.index(c) for c in REQUIRED]
+        bad = np.flatnonzero(~np.all(np.isfinite(block[:, idx]), axis=1))
+        if len(bad):
+            raise InputError(os.fspath(path), first + int(bad[0]), "a blank t, x, y or theta: "
+                             "the clearance needs a pose on every row")
+        meter.add(block[:, idx[0]], block[:, idx[1:]])
+    traces = [read_trace(path, max_rows, measure if meter is not None else None)]
     if compare:
         traces.append(read_trace(compare, max_rows))
     d = os.path.dirname(os.path.abspath(out))
     if not os.path.isdir(d):
         raise InputError("-o", None, f"directory '{os.path.dirname(out) or '.'}' does not exist")
-    fig = figure(traces)
+    clearance = traces[0].clearance = meter.result() if meter is not None else None
+    fig = figure(traces, floor, clearance)
     part = os.fspath(out) + ".part"
     try:
         with open(part, "wb") as fh:

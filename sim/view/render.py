@@ -18,6 +18,13 @@ meaning rests on a red/green difference: clean wheels are dark navy and turn
 orange as they skid, skid arrows are vermillion, axle lines sky blue, the ICR
 reddish purple, the path bluish green.  Shapes carry meaning as well (ring =
 ICR, edge triangle = ICR off the view, hollow double arrow = ICR at infinity).
+
+With a floor (:class:`~sim.model.floor.Floor`) the renderer also draws its
+features (solid polygons grey, lines dark grey), the area swept so far
+(translucent blue), and the closest pair of points between base and floor so
+far with its distance; a contact is drawn in vermillion, the warning colour.
+The measuring is :class:`sim.runs.clearance.ClearanceMeter`, fed the rows as
+they are observed.
 """
 from __future__ import annotations
 
@@ -54,6 +61,10 @@ PALETTE = {
     "target": (240, 228, 66),         # Okabe-Ito yellow (black outline): the controller's target point
     "roller": (150, 170, 195),
     "ball": (200, 200, 200),
+    "floor_fill": (172, 168, 160),    # solid floor features (shelves, door frames, keep-out zones)
+    "floor_edge": (64, 62, 58),       # their outlines, and wall lines
+    "swept": (0, 114, 178, 44),       # Okabe-Ito blue, translucent: area swept so far
+    "closest": (30, 30, 30),          # the closest pair of points
 }
 
 SLIP_FULL = 0.05        # m/s: wheel drawn fully orange at this skid speed
@@ -233,7 +244,7 @@ def wheel_skid(robot, row) -> np.ndarray:
 
 def reach(robot) -> float:
     """m, the farthest point of footprint or wheel from the body origin."""
-    r = math.hypot(abs(robot.footprint_x) + robot.length / 2, abs(robot.footprint_y) + robot.width / 2)
+    r = float(np.max(np.hypot(robot.outline[:, 0], robot.outline[:, 1])))
     for w in robot.wheels:
         r = max(r, math.hypot(w.x, w.y) + w.trail + w.radius)
     return r
@@ -253,17 +264,19 @@ class Renderer:
     title : str, shown under the robot's name (scenario file, "drive", ...).
     align : str, the steering policy shown in the panel (may change).
     step : float or None, s, shown in the panel.
+    floor : :class:`~sim.model.floor.Floor` or None: draw it, the swept area and the closest pair.
 
-    Feed every row to :meth:`observe` (trail, bounds, peak slip); call
+    Feed every row to :meth:`observe` (trail, bounds, peak slip, clearance); call
     :meth:`draw` when a frame is wanted.  ``view`` (a :class:`View`) and
     ``follow`` (keep the base centred) are the user's to change.
     """
 
     def __init__(self, robot, size=DEFAULT_SIZE, title="", align="wait", step=None,
-                 align_tolerance=None):
+                 align_tolerance=None, floor=None):
         from sim.theory.analysis import analyze
 
         self.robot = robot
+        self.floor = floor if floor is not None and len(floor) else None
         self.size = (int(size[0]), int(size[1]))
         self.title = title
         self.align = align
@@ -310,6 +323,11 @@ class Renderer:
         self.bounds = None
         self.peak = (0.0, 0.0)
         self._ghost_from = None
+        self.meter = None
+        self._pending = []
+        if self.floor is not None:
+            from sim.runs.clearance import ClearanceMeter
+            self.meter = ClearanceMeter(self.robot.outline, self.floor, swept=True)
 
     def snapshot(self) -> tuple:
         """What :meth:`observe` has gathered (trail, earlier footprints, peak slip), to :meth:`restore` later.
@@ -342,6 +360,16 @@ class Renderer:
         self.bounds = (x, x, y, y) if b is None else (min(b[0], x), max(b[1], x), min(b[2], y), max(b[3], y))
         if row.slip > self.peak[0]:
             self.peak = (float(row.slip), float(row.t))
+        if self.meter is not None:
+            self._pending.append((float(row.t), x, y, th))
+
+    def clearance(self):
+        """The :class:`~sim.runs.clearance.ClearanceMeter` with every row observed so far, or None."""
+        if self.meter is not None and self._pending:
+            a = np.array(self._pending)
+            self._pending = []
+            self.meter.add(a[:, 0], a[:, 1:])
+        return self.meter
 
     def fit(self, bounds=None) -> None:
         """Fit the view to ``bounds`` (xmin, xmax, ymin, ymax) m, or to all poses seen."""
@@ -354,10 +382,25 @@ class Renderer:
         if b is None:
             b = (0.0, 0.0, 0.0, 0.0)
         r = self._reach * 1.15
+        if self.floor is not None:
+            b = self._with_floor(b, max(3 * self._reach, 1.0))
         cx, cy = (b[0] + b[1]) / 2, (b[2] + b[3]) / 2
         hw = max((b[1] - b[0]) / 2 + r, 2.5 * r)
         hh = max((b[3] - b[2]) / 2 + r, 2.5 * r)
         self.view.fit(cx - hw, cx + hw, cy - hh, cy + hh)
+
+    def _with_floor(self, b, margin):
+        """The box ``b`` grown to take in the floor features within ``margin`` m of it."""
+        import shapely
+        from sim.runs.clearance import feature_geometry
+
+        box = shapely.box(b[0] - margin, b[2] - margin, b[1] + margin, b[3] + margin)
+        near = shapely.intersection(np.array([feature_geometry(f) for f in self.floor.features]), box)
+        near = near[~shapely.is_empty(near)]
+        if not len(near):
+            return b
+        x0, y0, x1, y1 = shapely.total_bounds(near)
+        return (min(b[0], x0), max(b[1], x1), min(b[2], y0), max(b[3], y1))
 
     # -- drawing helpers ----------------------------------------------------
     def _font(self, size):
@@ -436,11 +479,17 @@ class Renderer:
         surf.fill(PALETTE["paper"])
         surf.set_clip(pg.Rect(self.view.rect))
         labels = self._grid(surf)
+        meter = self.clearance()
+        if meter is not None:
+            self._swept(surf, meter.swept)
+            self._floor(surf)
+        touching = meter is not None and meter.touching
         self._route(surf)
         self._ghosts(surf)
         self._footprint(surf, pose, PALETTE["body_fill"], None, 2)
         self._path(surf)                    # over the fill: the path runs up to the body origin
-        self._footprint(surf, pose, None, PALETTE["body_edge"], 2)
+        self._footprint(surf, pose, None, PALETTE["skid"] if touching else PALETTE["body_edge"],
+                        4 if touching else 2)
         self._axles(surf, row)
         self._wheels(surf, row)
         self._centre(surf, pose)
@@ -452,6 +501,14 @@ class Renderer:
             diamond = self._ipts([(u, v - 8), (u + 8, v), (u, v + 8), (u - 8, v)])
             pg.draw.polygon(surf, PALETTE["target"], diamond)
             pg.draw.polygon(surf, PALETTE["ink"], diamond, 2)
+        lines, notes = list(lines), list(notes)
+        if meter is not None:
+            near, first = meter.nearest(), meter.first_contact()
+            self._closest(surf, near, first)
+            lines += self._clearance_lines(near)
+            if first is not None:
+                notes.append(f"contact with {first.feature} from t={first.t:.2f} s "
+                             f"({meter.contact_rows} rows so far)" + ("; touching now" if touching else ""))
         self._scale_bar(surf)
         self._compass(surf)
         if status is not None:
@@ -459,9 +516,9 @@ class Renderer:
         self._grid_labels(surf, labels)     # last: on their own background, clear of the insets
         surf.set_clip(None)
         if self.route_xy is not None or self.waypoints is not None:
-            lines = list(lines) + [("route", "grey; waypoints: circles"),
-                                   ("", "target: yellow diamond" if self.plan is not None else "")]
-        self._panel(surf, row, lines, list(notes))
+            lines = lines + [("route", "grey; waypoints: circles"),
+                             ("", "target: yellow diamond" if self.plan is not None else "")]
+        self._panel(surf, row, lines, notes)
         return surf
 
     def _route(self, surf):
@@ -477,6 +534,80 @@ class Renderer:
             for p in self._ipts(np.stack([u, v], axis=1)):
                 pg.draw.circle(surf, PALETTE["panel"], p, 6)
                 pg.draw.circle(surf, PALETTE["ink"], p, 6, 2)
+
+    # -- the floor ----------------------------------------------------------
+    def _ring_pixels(self, ring):
+        """Integer pixel tuples of a ring or line of world points (k, 2) m."""
+        ring = np.asarray(ring, dtype=float)
+        u, v = self.view.to_screen(ring[:, 0], ring[:, 1])
+        return self._ipts(np.stack([u, v], axis=1))
+
+    def _floor(self, surf):
+        pg = _pg()
+        lw = max(2, int(round(0.03 * self.view.scale)))
+        for f in self.floor.features:
+            if f.kind == "polygon":
+                for rings in f.parts:
+                    pg.draw.polygon(surf, PALETTE["floor_fill"], self._ring_pixels(rings[0]))
+                    for hole in rings[1:]:
+                        pg.draw.polygon(surf, PALETTE["paper"], self._ring_pixels(hole))
+                    for ring in rings:
+                        pg.draw.polygon(surf, PALETTE["floor_edge"], self._ring_pixels(ring), 2)
+            else:
+                for pts in f.parts:
+                    pg.draw.lines(surf, PALETTE["floor_edge"], False, self._ring_pixels(pts), lw)
+
+    def _swept(self, surf, geom):
+        """The swept area, translucent: drawn on an alpha layer (exteriors filled, holes cleared)."""
+        import shapely
+
+        if geom is None or geom.is_empty:
+            return
+        pg = _pg()
+        layer = pg.Surface(self.size, pg.SRCALPHA, 32)
+        polys = sorted(shapely.get_parts(geom), key=lambda p: -p.area)   # islands after the holes around them
+        for p in polys:
+            if p.geom_type != "Polygon":
+                continue
+            ext = self._ring_pixels(np.asarray(p.exterior.coords))
+            if len(ext) >= 3:
+                pg.draw.polygon(layer, PALETTE["swept"], ext)
+            for hole in p.interiors:
+                pts = self._ring_pixels(np.asarray(hole.coords))
+                if len(pts) >= 3:
+                    pg.draw.polygon(layer, (0, 0, 0, 0), pts)
+        surf.blit(layer, (0, 0))
+
+    def _closest(self, surf, near, first):
+        """The closest pair so far with its distance; the first contact in vermillion."""
+        pg = _pg()
+        if first is not None:
+            p = self._ring_pixels([first.point])[0]
+            for d in ((-9, -9, 9, 9), (-9, 9, 9, -9)):
+                pg.draw.line(surf, PALETTE["skid"], (p[0] + d[0], p[1] + d[1]), (p[0] + d[2], p[1] + d[3]), 4)
+            pg.draw.circle(surf, PALETTE["skid"], p, 13, 2)
+        if near is None:
+            return
+        a, b = self._ring_pixels([near.base_point, near.feature_point])
+        col = PALETTE["skid"] if near.distance <= 0 else PALETTE["closest"]
+        pg.draw.line(surf, col, a, b, 2)
+        for q in (a, b):
+            pg.draw.circle(surf, PALETTE["panel"], q, 5)
+            pg.draw.circle(surf, col, q, 5, 2)
+        label = f"{near.distance * 1000:.0f} mm" if near.distance < 1 else f"{near.distance:.3f} m"
+        d = np.subtract(b, a).astype(float)
+        n = float(np.hypot(*d))
+        off = np.array([-d[1], d[0]]) / n * 16 if n > 1 else np.array([0.0, -16.0])
+        mid = (np.add(a, b) / 2 + off)
+        img = self._font(18).render(label, True, col)
+        rect = img.get_rect(center=(int(round(mid[0])), int(round(mid[1]))))
+        pg.draw.rect(surf, PALETTE["panel"], rect.inflate(6, 2))
+        surf.blit(img, rect)
+
+    def _clearance_lines(self, near):
+        if near is None:
+            return [("clearance", "no floor features")]
+        return [("clearance", f"{near.distance:.3f} m to {near.feature}"), ("", f"at t={near.t:.2f} s (least so far)")]
 
     def _grid(self, surf):
         """Grid lines; returns the labels of the major ones, ``[(pixel, value m, anchor)]``."""
@@ -596,10 +727,10 @@ class Renderer:
     def _footprint(self, surf, pose, fill, edge, width):
         """The footprint at ``pose``: ``fill`` and/or ``edge`` (outline and front chevron), either may be None."""
         pg = _pg()
-        L, W = self.robot.length / 2, self.robot.width / 2
-        cx, cy = self.robot.footprint_x, self.robot.footprint_y
-        pts = self._ipts(self._body_to_screen(pose, [(cx + L, cy + W), (cx - L, cy + W),
-                                                     (cx - L, cy - W), (cx + L, cy - W)]))
+        o = self.robot.outline
+        L, W = (o[:, 0].max() - o[:, 0].min()) / 2, (o[:, 1].max() - o[:, 1].min()) / 2
+        cx, cy = (o[:, 0].max() + o[:, 0].min()) / 2, (o[:, 1].max() + o[:, 1].min()) / 2
+        pts = self._ipts(self._body_to_screen(pose, o))
         if fill is not None:
             pg.draw.polygon(surf, fill, pts)
         if edge is None:
@@ -832,7 +963,7 @@ class Renderer:
             self._text(surf, value, (x + 88, y), PALETTE["ink"], 18)
             y += 19
         y += 4
-        legend_top = H - 178
+        legend_top = H - 178 - (66 if self.floor is not None else 0)
         for note in command_notes(self.robot, row, self.align, self.align_tolerance) + notes:
             for ln in self._wrap(note, W - 2 * x, 18):
                 if y + 18 > legend_top - 10:        # no room left: the legend stays readable
@@ -874,6 +1005,25 @@ class Renderer:
         y += 22
         pg.draw.line(surf, PALETTE["path"], (x, y + 9), (x + 56, y + 9), 3)
         self._text(surf, "path; pale outlines: earlier", (tx, y + 2), PALETTE["ink"], 17)
+        if self.floor is None:
+            return
+        y += 22
+        pg.draw.rect(surf, PALETTE["floor_fill"], pg.Rect(x, y + 3, 24, 13))
+        pg.draw.rect(surf, PALETTE["floor_edge"], pg.Rect(x, y + 3, 24, 13), 2)
+        pg.draw.line(surf, PALETTE["floor_edge"], (x + 32, y + 9), (x + 56, y + 9), 3)
+        self._text(surf, "floor: solid feature, wall line", (tx, y + 2), PALETTE["ink"], 17)
+        y += 22
+        layer = pg.Surface((56, 13), pg.SRCALPHA, 32)
+        layer.fill(PALETTE["swept"])
+        surf.blit(layer, (x, y + 3))
+        self._text(surf, "area swept so far", (tx, y + 2), PALETTE["ink"], 17)
+        y += 22
+        for q in ((x + 5, y + 9), (x + 38, y + 9)):
+            pg.draw.circle(surf, PALETTE["closest"], q, 4, 2)
+        pg.draw.line(surf, PALETTE["closest"], (x + 9, y + 9), (x + 34, y + 9), 2)
+        for d in ((-5, -5, 5, 5), (-5, 5, 5, -5)):
+            pg.draw.line(surf, PALETTE["skid"], (x + 52 + d[0], y + 9 + d[1]), (x + 52 + d[2], y + 9 + d[3]), 3)
+        self._text(surf, "closest pair; x: first contact", (tx, y + 2), PALETTE["ink"], 17)
 
 
 # --------------------------------------------------------------------------
