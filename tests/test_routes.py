@@ -469,3 +469,22 @@ def test_motion_of_bundled_bases():
         "greenhouse-rover": ("line", "kanayama"), "pallet-tug": ("line", "kanayama"),
         "camera-dolly": ("free", "omni")}
     assert kinds["ward-cart"].guide == (0.0, 0.0, 0.0)
+
+
+def test_route_floor_reports_clearance_along_each_plan(cli):
+    # The side-corridor route in the ward corridor floor: the tote (omnidirectional, heading held)
+    # reaches the corner at x = 6.4 m with its front edge L/2 ahead of its origin; the outer wall
+    # is at x = 6.8 m, so its smallest clearance is 0.4 - L/2 (plane geometry).  The ward cart
+    # turns in place there and its corners sweep into that wall: a contact.
+    root = ROBOTS.parent
+    tote = load_robot(root / "robots" / "tote-mecanum.yaml")
+    code, out, err = cli(["route", str(root / "routes" / "side-corridor.yaml"), str(root / "robots" / "tote-mecanum.yaml"),
+                          str(root / "robots" / "ward-cart.yaml"), "--floor", str(root / "floors" / "ward-corridor.geojson"),
+                          "--json"])
+    assert code == 0, err
+    got = {d["robot"]: d["clearance"] for d in json.loads(out)}
+    c = got[tote.name]
+    assert c["feature"] == "outer-wall" and c["contact"] is None
+    assert c["distance"] == pytest.approx(0.4 - tote.length / 2, abs=1e-6)
+    cart = got["ward-cart"]
+    assert cart["distance"] == 0.0 and cart["contact"]["feature"] == "outer-wall"
