@@ -51,31 +51,37 @@ class Decisions:
         self.kinds = {}
 
     def _add(self, kind, block, mask, extreme, better, extra=None):
-        idx = np.flatnonzero(mask)
-        if not len(idx):
+        """Fold the rows of ``mask`` into ``kind``; ``extreme(idx)`` gives their values (only
+        computed when some row is in the mask)."""
+        if not mask.any():
             return
+        idx = np.flatnonzero(mask)
         d = self.kinds.setdefault(kind, {"first_t": float(block.t[idx[0]]), "rows": 0, "extreme": None})
         d["rows"] += len(idx)
-        j = idx[int(np.argmax(extreme[idx]) if better == "max" else np.argmin(extreme[idx]))]
-        v = float(extreme[j])
+        vals = extreme(idx)
+        j = int(np.argmax(vals) if better == "max" else np.argmin(vals))
+        v = float(vals[j])
         if d["extreme"] is None or (v > d["extreme"] if better == "max" else v < d["extreme"]):
-            d["extreme"], d["extreme_t"] = v, float(block.t[j])
+            d["extreme"], d["extreme_t"] = v, float(block.t[idx[j]])
             if extra is not None:
-                d.update(extra(j))
+                d.update(extra(idx[j]))
 
     def fold(self, block) -> None:
         """Add a :class:`~sim.engine.record.Block` (rows in order)."""
-        togo = np.nan_to_num(np.abs(block.to_go)).max(axis=1) if block.n else np.zeros(len(block))
-        self._add("held", block, block.held == 1.0, togo, "max")
-        self._add("scaled", block, block.scale < 1.0, block.scale, "min")
-        sf = block.shortfall * np.array([1.0, 1.0, self.robot.size])
-        norm = np.sqrt(np.einsum("ij,ij->i", sf, sf))
-        self._add("projected", block, block.fit == 1.0, norm, "max",
+        size = np.array([1.0, 1.0, self.robot.size])
+        fit = block.fit
+        self._add("held", block, block.held == 1.0,
+                  lambda i: np.nan_to_num(np.abs(block.to_go[i])).max(axis=1), "max")
+        scale = block.scale
+        self._add("scaled", block, scale < 1.0, lambda i: scale[i], "min")
+        self._add("projected", block, fit == 1.0,
+                  lambda i: np.sqrt(((block.shortfall[i] * size) ** 2).sum(axis=1)), "max",
                   lambda j: {"twist": [float(v) for v in block.shortfall[j]]})
-        self._add("skid", block, block.fit == 2.0, block.slip, "max")
-        lim = np.nan_to_num(block.at_limit) == 1.0
-        if lim.any():
-            self._add("at_limit", block, lim.any(axis=1), lim.sum(axis=1).astype(float), "max")
+        self._add("skid", block, fit == 2.0, lambda i: block.slip[i], "max")
+        lim = block.at_limit == 1.0          # blank (NaN) for wheels that are not steered: never 1
+        rows = lim.any(axis=1)
+        if rows.any():
+            self._add("at_limit", block, rows, lambda i: lim[i].sum(axis=1).astype(float), "max")
             names = self.kinds["at_limit"].setdefault("wheels", [])
             for i in np.flatnonzero(lim.any(axis=0)):
                 if self.robot.wheels[i].name not in names:

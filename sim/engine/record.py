@@ -120,7 +120,7 @@ class Block:
             return self.values[:, NROW + WHEEL[name]: NROW + NWHEEL * self.n: NWHEEL]
         group = _GROUPS.get(name)
         if group is not None:
-            return self.values[:, [ROW[c] for c in group]]
+            return self.values[:, ROW[group[0]]: ROW[group[-1]] + 1]
         raise AttributeError(name)
 
     def row(self, i: int) -> "StepResult":
@@ -128,6 +128,7 @@ class Block:
         return StepResult(self.values[i].copy(), self.n)
 
 
+# (contiguous columns: read as views)
 _GROUPS = {"pose": ("x", "y", "theta"), "twist": ("vx", "vy", "omega"), "icr": ("icr_x", "icr_y"),
            "cmd": ("cmd_vx", "cmd_vy", "cmd_omega"), "shortfall": ("short_vx", "short_vy", "short_omega")}
 

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from sim.engine.notes import Decisions
-from sim.engine.record import columns
+from sim.engine.record import Block, columns
 from sim.engine.simulator import Simulator
 from sim.files.scenario import Scenario
 from sim.theory.se2 import wrap
@@ -276,17 +276,29 @@ def simulator_for(scen: Scenario) -> Simulator:
 
 
 def _blocks(scen, odo, on_row):
-    """Blocks of at most CHUNK rows: each script segment runs as compiled stretches."""
+    """Blocks of up to CHUNK rows.  Each script segment runs as a compiled stretch; short
+    segments fill one block together, so the summary and the writer see few, large blocks."""
     sim = simulator_for(scen)
     buf = np.empty((min(CHUNK, max(scen.steps, 1)), sim.width))  # reused: each block is consumed before the next
+    fill, start = 0, 0
+
+    def done(rows):
+        block = Block(start, buf[:rows], sim.n)
+        if on_row is not None:
+            for i in range(rows):
+                on_row(block.row(i))
+        return block, (odo.update_block(block) if odo else None)
+
     for k0, m, todo in _segments(scen, CHUNK):
+        if fill + m > len(buf):
+            yield done(fill)
+            fill, start = 0, k0
         for c in todo:
             apply_command(sim, c)
-        block = sim.advance(m, out=buf[:m])
-        if on_row is not None:
-            for i in range(m):
-                on_row(block.row(i))
-        yield block, (odo.update_block(block) if odo else None)
+        sim.advance(m, out=buf[fill:fill + m])
+        fill += m
+    if fill:
+        yield done(fill)
 
 
 def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: bool = False,
@@ -395,12 +407,13 @@ def _account(res: RunResult, checks, block, last_pos) -> None:
     i = int(np.argmax(block.slip))
     if block.slip[i] > res.peak_slip:
         res.peak_slip, res.peak_slip_t = float(block.slip[i]), float(block.t[i])
-    w = block.shortfall * _metric(res.scenario.robot)
-    j = int(np.argmax(np.einsum("ij,ij->i", w, w)))
-    sf = float(np.sqrt(w[j] @ w[j]))
-    if sf > res.peak_shortfall:
-        res.peak_shortfall, res.peak_shortfall_t = sf, float(block.t[j])
-        res.peak_shortfall_twist = tuple(float(v) for v in block.shortfall[j])
+    if (block.fit == 1.0).any():  # projected requests: the shortfall is 0 elsewhere
+        w = block.shortfall * _metric(res.scenario.robot)
+        j = int(np.argmax(np.einsum("ij,ij->i", w, w)))
+        sf = float(np.sqrt(w[j] @ w[j]))
+        if sf > res.peak_shortfall:
+            res.peak_shortfall, res.peak_shortfall_t = sf, float(block.t[j])
+            res.peak_shortfall_twist = tuple(float(v) for v in block.shortfall[j])
     low = np.flatnonzero(block.rank < 3)
     if len(low) and res.underdetermined_t is None:
         res.underdetermined_t = float(block.t[low[0]])
