@@ -107,7 +107,8 @@ def test_same_table_on_one_or_two_processes_and_on_dask(tmp_path):
     two = S.run_study(study, jobs=2)
     assert len(one.rows) == 15 and two.rows == one.rows and two.ran == 15
     distributed = pytest.importorskip("distributed")
-    with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False, host="127.0.0.1",
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False, protocol="tcp://",
+                                  host="127.0.0.1",
                                   dashboard_address=None) as cluster:
         remote = S.run_study(study, scheduler=cluster.scheduler_address)
     assert remote.rows == one.rows

@@ -347,7 +347,15 @@ def _run_pool(units, todo, jobs, done) -> None:
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     from sim.runs.batch import worker_context
-    ex = ProcessPoolExecutor(max_workers=min(jobs, len(units)), mp_context=worker_context(),
+    ctx = worker_context()
+    if ctx.get_start_method() == "fork":
+        # the first variant runs here: it loads the compiled engine (numba's disk cache) once,
+        # and the forked workers start with it in place instead of each loading it again
+        done(todo[0], run_variant(units[0]))
+        units, todo = units[1:], todo[1:]
+        if not units:
+            return
+    ex = ProcessPoolExecutor(max_workers=min(jobs, len(units)), mp_context=ctx,
                              initializer=_ignore_sigint)
     ok = False
     try:
