@@ -185,14 +185,14 @@ def test_cli_writes_table_and_plot(tmp_path, capsys):
 
 
 BAD = [
-    ("wheels: [left, rigth]", "no wheel named 'rigth'", 6),
-    ("wheels: [left, right]\n    key: wheelbase", "a wheel has no number", 7),
-    ("wheels: [left, right]\n    key: max_steer_rate", "applies to steered wheels only", 6),
-    ("wheels: [left, right]\n    key: radius\n    range: {from: 0.2, to: 0.1, count: 3}", "empty range", 8),
-    ("wheels: [left, right]\n    key: radius\n    values: []", "the list of values is empty", 8),
-    ("wheels: [left, right]\n    key: radius\n    values: [0.1, big]", "expected a number", 8),
+    ("wheels: [left, rigth]", "no wheel named 'rigth'", 5),
+    ("wheels: [left, right]\n    key: wheelbase", "a wheel has no number 'wheelbase'", 6),
+    ("wheels: [left, right]\n    key: max_steer_rate", "applies to steered wheels only", 5),
+    ("wheels: [left, right]\n    key: radius\n    range: {from: 0.2, to: 0.1, count: 3}", "empty range", 7),
+    ("wheels: [left, right]\n    key: radius\n    values: []", "the list of values is empty", 7),
+    ("wheels: [left, right]\n    key: radius\n    values: [0.1, big]", "expected a number", 7),
     ("wheels: [left, right]\n    key: radius\n    samples: 0\n    range: {from: 0.1, to: 0.2}",
-     "expected a whole number of samples", 8),
+     "expected a whole number of samples", 7),
     ("footprint: height\n    values: [1]", "the footprint has no number 'height'", 5),
 ]
 

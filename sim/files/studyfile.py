@@ -164,12 +164,14 @@ def load_study(path) -> Study:
 
 
 def _file(value, where, base_dir, what) -> str:
+    """The path of a file the study names: absolute when the study's own path or the value is,
+    else relative to the working folder (as the user would type it)."""
     if not isinstance(value, str) or not value.strip():
         raise where.error(f"expected the path of a {what} file, got {F.describe(value)}")
     p = value if os.path.isabs(value) else os.path.normpath(os.path.join(base_dir, value))
     if not os.path.isfile(p):
         raise where.error(f"{what} file '{value}' not found (looked for {p})")
-    return p if os.path.isabs(value) else os.path.relpath(p)
+    return p if os.path.isabs(value) or os.path.isabs(where.source) else os.path.relpath(p)
 
 
 def _digest_file(h, path) -> None:
@@ -354,7 +356,7 @@ def _parameter(item, where, robot, robot_data) -> Parameter:
             raise where.error(f"missing required key 'key' (the number to vary: {', '.join(WHEEL_KEYS)})")
         key = p["key"]
         if key not in WHEEL_KEYS:
-            raise at("key").error(f"a wheel has no number '{F.describe(key)}' a study can vary"
+            raise at("key").error(f"a wheel has no number {F.describe(key)} a study can vary"
                                   f"{F.suggest(key, WHEEL_KEYS)}; allowed: {', '.join(WHEEL_KEYS)}")
         types, kind, unit = WHEEL_KEYS[key]
         for i, w in zip(wheels, nw):
