@@ -94,6 +94,28 @@ routes: [corner.yaml]
             assert row["route_time"] > 0
 
 
+def test_smallest_clearance_to_a_wall_beside_a_straight_route(tmp_path):
+    """A rectangle of width w driven along y = 0 past a wall on y = 0.6 stays 0.6 - w/2 from it
+    (plane geometry), 0 once they touch or overlap."""
+    _write(tmp_path, "diff.yaml", DIFF)
+    _write(tmp_path, "straight.yaml", STRAIGHT)
+    _write(tmp_path, "wall.yaml", "wall: {line: [[-1, 0.6], [6, 0.6]]}\n")
+    widths = [0.4, 0.6, 0.8, 1.2, 1.4]
+    path = _write(tmp_path, "study.yaml", f"""\
+robot: diff.yaml
+parameters:
+  - {{footprint: width, values: {widths}}}
+routes:
+  - {{route: straight.yaml, floor: wall.yaml}}
+figures: [smallest_clearance, route_time]
+""")
+    run = S.run_study(load_study(path))
+    assert [r["footprint.width"] for r in run.rows] == widths
+    for r in run.rows:
+        assert r["smallest_clearance"] == pytest.approx(max(0.0, 0.6 - r["footprint.width"] / 2), abs=1e-9)
+    assert S.pareto(run.rows, "route_time", "smallest_clearance") == [run.rows[0]]  # same time, most room
+
+
 def test_same_table_on_one_or_two_processes_and_on_dask(tmp_path):
     path = _diff_study(tmp_path, extra="""\
   - name: accel

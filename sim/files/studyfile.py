@@ -31,7 +31,6 @@ file's own validation refuses is not an error of the study: it is that variant's
 from __future__ import annotations
 
 import hashlib
-import importlib.util
 import math
 import os
 from dataclasses import dataclass
@@ -72,7 +71,6 @@ FIGURES = {
     "odometry_error": ("odometry_error", "m", "low", "scenario"),
     "checks": ("checks_failed", "", "low", "scenario"),
 }
-CLEARANCE_MODULE = "sim.runs.clearance"
 
 
 @dataclass(frozen=True)
@@ -147,14 +145,6 @@ def figure_of(column: str) -> tuple:
         if col == base:
             return f, unit, better
     raise KeyError(column)
-
-
-def clearance_available() -> bool:
-    """Whether this build has the floor clearance (``sim.runs.clearance``)."""
-    try:
-        return importlib.util.find_spec(CLEARANCE_MODULE) is not None
-    except ImportError:
-        return False
 
 
 def load_study(path) -> Study:
@@ -248,6 +238,8 @@ def study_from_data(data, source="<inline>") -> Study:
                 path = _file(r["route"], w.at(r, "route"), base_dir, "route")
                 if "floor" in r:
                     floor = _file(r["floor"], w.at(r, "floor"), base_dir, "floor")
+                    from sim.files.floorfile import load_floor
+                    load_floor(floor)  # a bad floor is the study's error, found before anything runs
             else:
                 path = _file(r, w, base_dir, "route")
             routes.append(RouteRun(path, _stem(path), floor))
@@ -277,8 +269,6 @@ def study_from_data(data, source="<inline>") -> Study:
             if needs == "scenario" and not scens:
                 raise w.error(f"{f} is measured in scenarios; the study has no 'scenarios'")
             if needs == "floor":
-                if not clearance_available():
-                    raise w.error("smallest_clearance needs the floor clearance support, which this build lacks")
                 if not any(r.floor for r in routes):
                     raise w.error("smallest_clearance needs a route with a floor: {route: FILE, floor: FILE}")
             if f in figures:

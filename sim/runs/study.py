@@ -19,10 +19,15 @@ its ``robot`` replaced by the variant and run (:func:`sim.runs.runner.run_scenar
 It never raises for a variant: the outcome is in ``status``:
 
 * ``ok`` -- every route is feasible and every scenario ran;
+
 * ``invalid`` -- the robot file's validation refuses the variant (``reason`` says why);
 * ``infeasible`` -- a route plan is infeasible, or a scenario refuses the variant (say its
   route); the other figures are still measured;
 * ``crashed`` -- anything else (a bug: ``reason`` holds the exception).
+
+The smallest clearance is that of the variant's footprint (``Robot.outline``) at every row
+of its planned motion along a route with a floor (:func:`sim.runs.clearance.clearance_along`,
+as ``trundle route --floor``); 0 means contact.
 
 The cache
 ---------
@@ -121,8 +126,8 @@ def _route(path, digest):
 
 @functools.lru_cache(maxsize=32)
 def _floor(path, digest):
-    from sim.runs import clearance
-    return clearance.load_floor(path)
+    from sim.files.floorfile import load_floor
+    return load_floor(path)
 
 
 @functools.lru_cache(maxsize=32)
@@ -191,8 +196,9 @@ def _run_variant(robot_path, ovr, routes, scenarios, figures, digest) -> dict:
             if "smallest_clearance" in figures and floor:
                 c = None
                 if ok:
-                    from sim.runs import clearance
-                    c = clearance.smallest_clearance(robot, plan.pose, _floor(floor, digest))
+                    from sim.runs.clearance import clearance_along
+                    near = clearance_along(robot.outline, plan.pose, _floor(floor, digest), t=plan.t).nearest
+                    c = None if near is None else float(near.distance)
                 out["smallest_clearance" + (f"@{name}" if len(floored) > 1 else "")] = c
     for path, name in scenarios:
         sfx = f"@{name}" if many_scens else ""
