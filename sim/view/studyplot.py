@@ -53,8 +53,12 @@ def figure(run, sort, pair=None):
         if front:
             ax.plot([r[a] for r in front], [r[b] for r in front], color=FRONT, lw=1.5, ls="--",
                     marker="o", mfc="none", ms=9, mew=1.5, label="Pareto front", zorder=3)
-            for r in front:
-                ax.annotate(str(r["variant"]), (r[a], r[b]), textcoords="offset points", xytext=(5, 5), fontsize=8)
+            at = {}
+            for r in front:  # variants at the same point share one label
+                at.setdefault((r[a], r[b]), []).append(str(r["variant"]))
+            for (x, y), names in at.items():
+                text = ", ".join(names) if len(names) <= 4 else f"{', '.join(names[:3])} +{len(names) - 3}"
+                ax.annotate(text, (x, y), textcoords="offset points", xytext=(5, 5), fontsize=8)
         if not pts:
             ax.text(0.5, 0.5, "no ok variant with both figures", ha="center", va="center", transform=ax.transAxes)
         best = lambda c: "lower is better" if figure_of(c)[2] == "low" else "higher is better"
