@@ -33,6 +33,10 @@ times; the table shows the median.  Cases:
     1 ms) against 200 wall segments: the nearest approach to every segment and the first
     contact (what the checks compute), then the same with the swept area; and the peak memory
     the measuring adds over 10^5 and 10^6 rows fed in chunks (flat: it keeps only minima).
+13. ``trundle study`` of 1,000 variants (wheel radius x track x max_spin of the ward cart,
+   10 x 10 x 10) of a 10 s scenario at 100 Hz, no cache, whole process, ``--jobs 1``
+   and all cores; beside it the time one variant takes in a warm process, split into
+   building and checking it (robot, scenario) and running it.
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.
@@ -244,6 +248,8 @@ def _one(case: str, folder: str) -> dict:
             tracemalloc.stop()
         out["peak_mb"] = _peak_mb()
         return out
+    if case == "13":
+        return _study_split(folder)
     if case == "6":
         scen = load_scenario(os.path.join(folder, "hour.yaml"))
         csv = os.path.join(folder, "hour.csv")
@@ -362,6 +368,69 @@ def _serve_rate(folder: str, steps: int, seconds: float) -> dict:
             "server_cpu_us": 1e6 * server_cpu / n, "client_cpu_us": 1e6 * client_cpu / n}
 
 
+STUDY_SCENARIO = """\
+robot: {robot}
+step: 0.01
+duration: 10
+script:
+  - {{at: 0, twist: {{vx: 0.4}}}}
+  - {{at: 3, twist: {{vx: 0.3, omega: 0.5}}}}
+  - {{at: 6, twist: {{omega: -0.8}}}}
+  - {{at: 8, stop: true}}
+checks:
+  - slip_below: 0.001
+"""
+
+STUDY = """\
+robot: {robot}
+parameters:
+  - {{name: radius, wheels: [left, right], key: radius, range: {{from: 0.06, to: 0.10, count: 10}}}}
+  - {{name: half_track, wheels: [left, right], key: y, mirror: true, range: {{from: 0.18, to: 0.26, count: 10}}}}
+  - {{name: max_spin, wheels: [left, right], key: max_spin, range: {{from: 15, to: 30, count: 10}}}}
+scenarios: [ten-seconds.yaml]
+figures: [peak_slip, checks]
+"""
+
+
+def _write_study(folder: str) -> str:
+    robot = os.path.join(ROBOTS, "ward-cart.yaml")
+    with open(os.path.join(folder, "ten-seconds.yaml"), "w") as fh:
+        fh.write(STUDY_SCENARIO.format(robot=robot))
+    path = os.path.join(folder, "study.yaml")
+    with open(path, "w") as fh:
+        fh.write(STUDY.format(robot=robot))
+    return path
+
+
+def _study_split(folder: str, n: int = 50) -> dict:
+    """Seconds per variant in a warm process: building and checking it, and running it."""
+    from sim.files.robotfile import robot_from_data
+    from sim.files.scenario import scenario_from_data
+    from sim.files.studyfile import load_study
+    from sim.files.yamlread import Map, load_file
+    from sim.runs import study as S
+    from sim.runs.runner import run_scenario
+    st = load_study(os.path.join(folder, "study.yaml"))
+    base, scen_data = load_file(st.robot_path), load_file(st.scenarios[0].path)
+    variants = S.design(st)[:n]
+    S.run_variant(S.spec(st, S.overrides(st, variants[0])))  # warm: compiled code loaded
+    build = run = 0.0
+    for v in variants:
+        t = time.perf_counter()
+        data = S.variant_data(base, S.overrides(st, v))
+        robot_from_data(data, st.robot_path)
+        d = Map(scen_data)
+        d.line, d.lines = scen_data.line, dict(scen_data.lines)
+        d["robot"] = data
+        scen = scenario_from_data(d, st.scenarios[0].path)
+        t1 = time.perf_counter()
+        run_scenario(scen)
+        t2 = time.perf_counter()
+        build += t1 - t
+        run += t2 - t1
+    return {"build": build / n, "run": run / n}
+
+
 def _sub(case, folder, env=None) -> dict:
     r = subprocess.run([sys.executable, __file__, "--one", case, "--folder", folder],
                        capture_output=True, text=True, check=True, env=env)
@@ -414,6 +483,17 @@ def main(argv=None) -> int:
             rows.append({"case": "4", "label": f"batch of 200 x 10 s, --jobs 1 vs {os.cpu_count()}",
                          "steps": 200 * 10001, "wall_s": allc, "steps_per_s": 200 * 10001 / allc,
                          "jobs1_s": one, "ratio": med([a / b for a, b in pairs]), "peak_mb": float("nan")})
+        if "13" not in skip:
+            study = _write_study(folder)
+            cmd = [sys.executable, "-m", "sim", "study", study, "--no-cache"]
+            pairs = [(_timed(cmd + ["--jobs", "1"]), _timed(cmd + ["--jobs", str(os.cpu_count() or 1)]))
+                     for _ in range(args.repeat)]
+            one, allc = med([p[0] for p in pairs]), med([p[1] for p in pairs])
+            split = _sub("13", folder)
+            rows.append({"case": "13", "label": f"study, 1,000 variants x 10 s at 100 Hz, {os.cpu_count()} cores",
+                         "steps": 1000 * 1001, "wall_s": allc, "steps_per_s": 1000 * 1001 / allc,
+                         "jobs1_s": one, "ratio": med([a / b for a, b in pairs]), "peak_mb": float("nan"),
+                         "split": split})
         if "5" not in skip:
             cmd = [sys.executable, "-m", "sim", "analyze", os.path.join(ROBOTS, "ward-cart.yaml")]
             wall = med([_timed(cmd) for _ in range(max(5, args.repeat))])
@@ -477,7 +557,7 @@ def main(argv=None) -> int:
           f"numpy {numpy.__version__}, {platform.system()} {platform.release()}; CSV writer: {writer}")
     print(f"{'case':<5}{'what':<46}{'steps':>10}{'wall s':>9}{'steps/s':>12}{'ratio':>8}{'peak MB':>9}")
     for r in rows:
-        ratio = f"{r['ratio']:.2f}x" if r["case"] == "4" else f"{r['ratio']:.1f}x" if "ratio" in r else ""
+        ratio = f"{r['ratio']:.2f}x" if r["case"] in ("4", "13") else f"{r['ratio']:.1f}x" if "ratio" in r else ""
         sps = f"{r['steps_per_s']:,.0f}" if r["steps_per_s"] == r["steps_per_s"] else ""
         pk = f"{r['peak_mb']:.0f}" if r["peak_mb"] == r["peak_mb"] else ""
         print(f"{r['case']:<5}{r['label']:<46}{r['steps']:>10}{r['wall_s']:>9.3f}{sps:>12}{ratio:>8}{pk:>9}")
@@ -487,6 +567,10 @@ def main(argv=None) -> int:
                   f"over its first {NAIVE_STEPS} steps")
         if r["case"] == "4":
             print(f"case 4 --jobs 1: {r['jobs1_s']:.2f} s; all cores: {r['wall_s']:.2f} s")
+        if r["case"] == "13":
+            sp = r["split"]
+            print(f"case 13 --jobs 1: {r['jobs1_s']:.2f} s; all cores: {r['wall_s']:.2f} s; one variant in a warm "
+                  f"process: {1e3 * sp['build']:.1f} ms building and checking it, {1e3 * sp['run']:.1f} ms running")
         if r["case"] == "7":
             print(f"case 7 naive loop beside it: {r['naive_steps_per_s']:,.0f} steps/s")
         if r["case"] == "8":

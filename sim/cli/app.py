@@ -14,7 +14,7 @@ import sys
 from sim import __version__
 from sim.errors import InputError
 
-COMMANDS = ("analyze", "run", "route", "diff", "batch", "drive", "plot", "calibrate", "serve")
+COMMANDS = ("analyze", "run", "route", "diff", "batch", "study", "drive", "plot", "calibrate", "serve")
 
 
 def _parser() -> argparse.ArgumentParser:

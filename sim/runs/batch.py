@@ -5,7 +5,7 @@ Which files are scenarios
 A path given on the command line is taken as a scenario whatever it holds.
 In a folder (searched recursively, in sorted order) a scenario is a
 ``.yaml``/``.yml`` file whose top level is a mapping with a ``robot``,
-``script`` or ``commands`` key; folders named ``robots`` and hidden folders
+``script`` or ``commands`` key; folders named ``robots`` or ``studies`` and hidden folders
 are skipped, and so are YAML files without those keys (robot files have
 ``wheels``).  A YAML file that does not parse is listed anyway, so that it
 shows up as an input error instead of vanishing.
@@ -39,7 +39,7 @@ from sim.traces.tolerance import DEFAULT_TOLERANCE
 
 RESULTS = ("pass", "check failed", "diverged", "input error", "crashed")
 SCENARIO_KEYS = ("robot", "script", "commands")
-SKIP_DIRS = ("robots",)
+SKIP_DIRS = ("robots", "studies")
 YAML_SUFFIXES = (".yaml", ".yml")
 
 

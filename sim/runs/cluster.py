@@ -49,3 +49,35 @@ def run_units_dask(units, address, baselines_dir=None, update=False, tol=None, r
     finally:
         client.close()
     return results
+
+
+def map_dask(fn, args, address, on_result, on_error, name="trundle") -> None:
+    """Run ``fn(a)`` for every ``a`` in ``args`` on the Dask scheduler at ``address``.
+
+    ``on_result(index, value)`` as results arrive (any order); a call that fails on the
+    cluster gives ``on_result(index, on_error(index, exc))``.  Used by design studies,
+    whose units are not scenario files.
+    """
+    try:
+        from distributed import Client, as_completed
+    except ImportError:
+        raise InputError("--scheduler", None,
+                         "needs dask.distributed: pip install 'trundle[cluster]'") from None
+    try:
+        client = Client(address, timeout="10s", set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError("--scheduler", None, f"cannot reach the Dask scheduler at {address}: {exc}") from None
+    import uuid
+    tag = uuid.uuid4().hex[:8]  # keys unique to this call, whoever else uses the scheduler
+    try:
+        futs = {client.submit(fn, a, pure=False, key=f"{name}-{tag}-{i}"): i for i, a in enumerate(args)}
+        with client.as_current():
+            for f in as_completed(list(futs)):
+                i = futs[f]
+                try:
+                    r = f.result()
+                except Exception as exc:                     # noqa: BLE001 - a unit's crash is its result
+                    r = on_error(i, exc)
+                on_result(i, r)
+    finally:
+        client.close()
