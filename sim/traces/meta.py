@@ -67,11 +67,6 @@ def write_sidecar(trace_path, data: dict) -> str:
     return path
 
 
-def write_meta(csv_path, scen, columns, every: int, rows: int, complete: bool = True) -> str:
-    """Write the sidecar of trace ``csv_path``; return its path."""
-    return write_sidecar(csv_path, finished(trace_meta(scen, columns, every), rows, complete))
-
-
 def read_meta(csv_path) -> dict | None:
     """The sidecar of trace ``csv_path`` as a dict; for a Parquet trace without
     one, the copy in its key-value metadata; None when there is neither."""
