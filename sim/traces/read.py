@@ -24,23 +24,15 @@ from __future__ import annotations
 import csv
 import io
 import os
+
 import numpy as np
 
 from sim.errors import InputError
+from sim.files.table import PARQUET_MAGIC
 
 CHUNK_BYTES = 4 << 20          # CSV text per page
 PARQUET_ROWS = 1 << 14         # Parquet rows per page
 PARQUET_READ = 1 << 16         # Parquet rows decoded at a time
-MAGIC = b"PAR1"
-
-
-def is_parquet_file(path) -> bool:
-    """Whether ``path`` starts with the Parquet signature (False if it cannot be read)."""
-    try:
-        with open(path, "rb") as fh:
-            return fh.read(4) == MAGIC
-    except OSError:
-        return False
 
 
 def _open_error(path, exc: OSError, what="a trace") -> InputError:
@@ -171,7 +163,7 @@ class TraceReader:
         self._offset = 0
         try:
             with open(self.path, "rb") as fh:
-                self.kind = "parquet" if fh.read(4) == MAGIC else "csv"
+                self.kind = "parquet" if fh.read(4) == PARQUET_MAGIC else "csv"
         except OSError as exc:
             raise _open_error(self.path, exc) from None
         if self.kind == "parquet":
@@ -399,24 +391,3 @@ def _count(data: bytes, byte: int) -> int:
 def _first_line(exc) -> str:
     text = str(exc).strip().splitlines()
     return text[0] if text else type(exc).__name__
-
-
-def read_columns(path, names, require_finite=True) -> tuple:
-    """Whole columns ``names`` of a trace: ``({name: float64 array (rows,)}, columns)``.
-
-    Every cell read must be a finite number (``require_finite``); otherwise
-    InputError at its line (row).  Missing columns are the caller's business:
-    only the ones present are returned.
-    """
-    with TraceReader(path, require_t=False) as rd:
-        cols = [rd.columns.index(n) for n in names if n in rd.columns]
-        parts = []
-        for page in rd.pages():
-            v = page.values(cols=cols)
-            if require_finite and not np.isfinite(v).all():
-                r, c = np.argwhere(~np.isfinite(v))[0]
-                what = "a blank cell" if np.isnan(v[r, c]) else f"{v[r, c]!r}"
-                raise page.error(int(r), f"column '{rd.columns[cols[c]]}': expected a finite number, got {what}")
-            parts.append(v)
-        arr = np.vstack(parts) if parts else np.empty((0, len(cols)))
-        return {rd.columns[c]: np.ascontiguousarray(arr[:, j]) for j, c in enumerate(cols)}, rd.columns
