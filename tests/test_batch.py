@@ -1,6 +1,7 @@
 """`trundle batch`: discovery, worker processes, baselines, the table and JUnit XML."""
 from __future__ import annotations
 
+import json
 import os
 import xml.etree.ElementTree as ET
 
@@ -132,10 +133,23 @@ def test_update_says_what_changed_and_check_reports_divergence(suite, tmp_path, 
     code, out, _ = cli(["batch", suite, "--baselines", base, "--update", "--jobs", "1"])
     rows = {ln.split()[0]: ln for ln in out.splitlines() if ln.startswith(str(suite))}
     assert "changed, diverged t=" in rows[str(suite / "b-arc.yaml")]
-    assert "changed, within tolerance" in rows[str(suite / "a-straight.yaml")]     # rounding only
+    # the straight run moved by rounding only: within tolerance, so its trace is kept and only
+    # its sidecar (the new robot hash) is rewritten
+    straight = (base / "a-straight.csv").read_bytes()
+    assert "metadata only, within tolerance" in rows[str(suite / "a-straight.yaml")]
     assert "unchanged" in rows[str(suite / "nested" / "c-turn.yaml")]
     summary = out.split("baselines:")[1]
-    assert "2 changed, 2 unchanged" in summary and f"changed       {base / 'b-arc.csv'}" in summary
+    assert "1 changed, 1 metadata only, 2 unchanged" in summary
+    assert f"changed       {base / 'b-arc.csv'}" in summary
+    assert (base / "a-straight.csv").read_bytes() == straight
+    from sim.files.scenario import load_scenario
+    assert json.loads((base / "a-straight.csv.meta.json").read_text())["robot_hash"] == \
+        load_scenario(suite / "a-straight.yaml").robot_hash
+    # a tighter --tol than that rounding rewrites the trace too
+    code, out, _ = cli(["batch", suite, "--baselines", base, "--update", "--jobs", "1", "--tol", "0"])
+    rows = {ln.split()[0]: ln for ln in out.splitlines() if ln.startswith(str(suite))}
+    assert "changed, diverged t=" in rows[str(suite / "a-straight.yaml")]
+    assert (base / "a-straight.csv").read_bytes() != straight
     assert (base / "nested" / "d-arc.csv").stat().st_mtime_ns == stamp     # untouched
     # a comment in a scenario changes its hash only: the sidecar is rewritten, not the trace
     text = (suite / "nested" / "d-arc.yml").read_text()

@@ -126,7 +126,7 @@ int main(void) {
 """
 
 
-@pytest.mark.skipif(shutil.which("gcc") is None, reason="gcc not installed")
+@pytest.mark.skipif(shutil.which("gcc") is None, reason="no C compiler (gcc) installed: the exported header cannot be compiled here")
 def test_export_c_header_compiles_and_multiplies(tmp_path, cli):
     header = tmp_path / "base.h"
     code, out, err = cli(["analyze", ROBOTS / "tote-mecanum.yaml", "--export", "c", "-o", header])

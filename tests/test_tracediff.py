@@ -1,4 +1,4 @@
-"""Trace comparison (`trundle diff`, sim.tracediff) and baselines (`trundle run --baseline`)."""
+"""Trace comparison (`trundle diff`, sim.traces.diff) and baselines (`trundle run --baseline`)."""
 from __future__ import annotations
 
 import csv
@@ -228,21 +228,64 @@ def test_blank_and_nan_cells(tmp_path, cli):
 
 
 # -- structure differences --------------------------------------------------------
-def test_rows_columns_and_step_times_reported_plainly(tmp_path, cli):
+def test_rows_columns_and_times_reported_plainly(tmp_path, cli):
     rows = [[k * 0.01, 0.1 * k, 0.0, 0.0, ""] for k in range(5)]
     a = write_csv(tmp_path / "a.csv", HEAD, rows)
     short = write_csv(tmp_path / "short.csv", HEAD, rows[:3])
     code, out, _ = cli(["diff", a, short])
-    assert code == 1 and "A has 5, B has 3; compared the first 3" in out
+    assert code == 1 and "A has 5, B has 3" in out
+    assert "compared 3 rows at times in both; 2 only in A (t = 0.03, 0.04 s); none only in B" in out
+    assert "do not start and end at shared times" in out
     fewer = write_csv(tmp_path / "fewer.csv", HEAD[:-1], [r[:-1] for r in rows])
     code, out, _ = cli(["diff", a, fewer])
     assert code == 1 and "only in A: icr_x" in out
     assert cli(["diff", a, fewer, "--columns", "t,x,y,theta"])[0] == 0
+    # half the step, the same x per row: at the shared times 0.01 and 0.02 s, x differs
     half = write_csv(tmp_path / "half.csv", HEAD, [[k * 0.005] + r[1:] for k, r in enumerate(rows)])
-    code, out, _ = cli(["diff", a, half, "--json"])
+    code, out, _ = cli(["diff", a, half, "--json", "--tol", "1e-3"])
     rep = json.loads(out)
-    assert code == 1 and rep["step_mismatch"]["row"] == 1
-    assert rep["a"]["step"] == 0.01 and rep["b"]["step"] == 0.005
+    assert code == 1 and rep["a"]["step"] == 0.01 and rep["b"]["step"] == 0.005
+    assert rep["times"]["matched"] == 3 and not rep["times"]["ends_matched"]
+    assert rep["times"]["only_a"] == {"count": 2, "first": [0.03, 0.04], "last": 0.04}
+    assert rep["times"]["only_b"] == {"count": 2, "first": [0.005, 0.015], "last": 0.015}
+    first = rep["first_divergence"]
+    assert first["row"] == 1 and first["t"] == 0.01 and first["t_b"] == 0.01
+    assert first["columns"][0]["column"] == "x" and first["columns"][0]["deviation"] == pytest.approx(0.1)
+
+
+def test_different_grids_compare_at_shared_times(tmp_path, cli):
+    """Every other row of A, and A on a finer grid with values between: within tolerance at the shared times."""
+    rows = [[k * 0.01, math.sin(k * 0.01), 0.0, 7.0 * k * 0.01, ""] for k in range(11)]
+    a = write_csv(tmp_path / "a.csv", HEAD, rows)
+    thin = write_csv(tmp_path / "thin.csv", HEAD, rows[::2])
+    code, out, _ = cli(["diff", a, thin])
+    assert code == 0 and "WITHIN TOLERANCE" in out
+    assert "compared 6 rows at times in both; 5 only in A (t = 0.01, 0.03, 0.05, 0.07, 0.09 s); none only in B" in out
+    code, out, _ = cli(["diff", thin, a, "--json"])
+    rep = json.loads(out)
+    assert code == 0 and rep["status"] == "within tolerance" and rep["times"]["only_b"]["count"] == 5
+    # a finer grid: 0.005 s steps (k * 0.005 hits k/2 * 0.01 exactly for even k), other values between
+    fine = [[k * 0.005, math.sin(k * 0.005) if k % 2 == 0 else 99.0, 0.0, 7.0 * k * 0.005, ""] for k in range(21)]
+    code, out, _ = cli(["diff", a, write_csv(tmp_path / "fine.csv", HEAD, fine), "--json"])
+    rep = json.loads(out)
+    assert code == 0 and rep["times"]["matched"] == 11 and rep["times"]["only_b"]["count"] == 10
+    assert rep["columns"]["x"]["max_deviation"] <= 1e-15
+    # the same at shared times but one value off: diverged there, with A's row and time
+    rows[6][1] += 1e-3
+    code, out, _ = cli(["diff", write_csv(tmp_path / "a2.csv", HEAD, rows), thin, "--json"])
+    rep = json.loads(out)
+    assert code == 1 and rep["first_divergence"]["row"] == 6 and rep["first_divergence"]["t"] == 0.06
+
+
+def test_time_must_be_a_number_and_increase(tmp_path, cli, expect_input_error):
+    a = write_csv(tmp_path / "a.csv", HEAD, [[k * 0.01, 0.0, 0.0, 0.0, ""] for k in range(4)])
+    back = write_csv(tmp_path / "back.csv", HEAD, [[0.0, 0.0, 0.0, 0.0, ""], [0.02, 0.0, 0.0, 0.0, ""],
+                                                   [0.01, 0.0, 0.0, 0.0, ""]])
+    code, _, err = cli(["diff", a, back])
+    expect_input_error(code, err, back, 4, "column 't' must increase")
+    blank = write_csv(tmp_path / "blank.csv", HEAD, [[0.0, 0.0, 0.0, 0.0, ""], ["", 0.0, 0.0, 0.0, ""]])
+    code, _, err = cli(["diff", blank, a])
+    expect_input_error(code, err, blank, 3, "column 't' is blank")
 
 
 def test_bad_options_are_input_errors(tmp_path, cli, expect_input_error):
@@ -371,91 +414,37 @@ def test_run_against_baseline(tmp_path, cli, write_files):
     assert (tmp_path / "new.csv").is_file() and (tmp_path / "new.csv.meta.json").is_file()
 
 
-def test_parallel_segments_give_the_same_report(axle_pair, tmp_path, monkeypatch):
-    """Large files are split into row ranges across processes; forced here on a small pair."""
-    import sim.traces.diff as td
-    from sim.errors import InputError
-
+def test_bad_cell_far_into_a_file_is_found_with_its_line(axle_pair, tmp_path, expect_input_error, cli):
+    """Reference: the line numbers of the file as written here."""
     a, b = axle_pair
-    serial = compare(a, b, 1e-6, [("theta", 1e-4)]).to_dict()
-    monkeypatch.setattr(td, "PARALLEL_BYTES", 0)
-    assert compare(a, b, 1e-6, [("theta", 1e-4)], jobs=3, chunk_bytes=5000).to_dict() == serial
-    # a bad cell far into the file is still found, with its line
     lines = b.read_bytes().split(b"\r\n")
     lines[900] = lines[900].replace(b",", b",x", 1)
     bad = tmp_path / "bad.csv"
     bad.write_bytes(b"\r\n".join(lines))
-    with pytest.raises(InputError) as exc:
-        compare(a, bad, jobs=2)
-    assert (exc.value.source, exc.value.line) == (str(bad), 901)
+    from sim.errors import InputError
+    for chunk in (300, 1 << 20):
+        with pytest.raises(InputError) as exc:
+            compare(a, bad, chunk_bytes=chunk)
+        assert (exc.value.source, exc.value.line) == (str(bad), 901)
+        assert "column 'x': expected a number or a blank cell, got 'x" in exc.value.message
+    code, _, err = cli(["diff", bad, a, "--jobs", "1"])
+    expect_input_error(code, err, bad, 901, "column 'x'")
 
 
-# -- reading cells as numbers: the whole-block reading against Python's float ----------------
-from hypothesis import given, settings, strategies as st  # noqa: E402
-
-from sim.traces.csvread import Cells  # noqa: E402
-
-_DIGITS = st.text("0123456789", max_size=9)
-
-
-@st.composite
-def number_texts(draw):
-    """Decimal texts of the CSV number syntax, in the shapes people and writers use."""
-    kind = draw(st.integers(0, 3))
-    if kind == 0:                                        # what repr writes
-        return repr(draw(st.floats(allow_nan=False, allow_infinity=False)))
-    if kind == 1:
-        return repr(draw(st.floats(-1e3, 1e3, allow_nan=False)) * 10.0 ** draw(st.integers(-40, 40)))
-    whole, frac = draw(_DIGITS), draw(_DIGITS)
-    if not whole and not frac:
-        whole = "0"
-    text = draw(st.sampled_from(["", "-", "+"])) + whole + (("." + frac) if frac or draw(st.booleans()) else "")
-    if kind == 3:
-        text += draw(st.sampled_from("eE")) + draw(st.sampled_from(["", "-", "+"])) + str(draw(st.integers(0, 400)))
-    return text
-
-
-@settings(max_examples=150, deadline=None)
-@given(st.lists(st.lists(st.one_of(number_texts(), st.just("")), min_size=3, max_size=3), min_size=1, max_size=40))
-def test_block_reading_gives_exactly_pythons_float(rows):
-    """Reference: Python's float(), which rounds correctly to the nearest double (IEEE 754; common practice)."""
-    rows = [[c for c in r] for r in rows]
-    block = Cells.of([",".join(r).encode() for r in rows], 3)
-    assert block is not None
-    flat = [c for r in rows for c in r]
-    got = block.values(np.arange(len(flat)))
-    long_cell = any(len(c) > 24 for c in flat)
-    if long_cell:
-        assert got is None                               # declined: the per-cell reading takes over
-        return
-    want = np.array([float(c) if c else math.nan for c in flat])
-    assert np.array_equal(got, want, equal_nan=True)
-    assert np.array_equal(np.signbit(got), np.signbit(want))        # -0.0 stays negative
-
-
-@pytest.mark.parametrize("text", ["-", ".", "+.", "1e", "1e+", "e5", "1.2.3", "1e5e5", "1-2", "--1",
-                                  "1e5.0", ".e1", "1+", "1e--5", "+e5", "1.5e+-3", "1ee5"])
-def test_block_reading_declines_what_float_rejects(text):
-    with pytest.raises(ValueError):
-        float(text)
-    block = Cells.of([b"0.5," + text.encode() + b",2"], 3)
-    assert block is not None and block.values(np.arange(3)) is None
-    assert block.values(np.array([0, 2])).tolist() == [0.5, 2.0]           # its neighbours still read
-
-
-def test_whole_block_and_cell_by_cell_readings_agree(tmp_path, monkeypatch):
-    """Blanks, quotes, signs, exponents, long and tiny numbers, CR LF and LF: one report either way.
+def test_polars_and_the_careful_reading_agree(tmp_path, monkeypatch):
+    """Blanks, quotes, spaces, signs, exponents, long and tiny numbers, CR LF and LF: one report
+    whether polars or the cell-by-cell reading parses the pages.
 
     Reference for the deviations: the csv module and float(), cell by cell (as above).
     """
-    import sim.traces.csvread as tc
+    from sim.traces.read import TraceReader
 
     header = ["t", "x", "y", "theta", "icr_x"]
     cells_a = ["0.5", "-0.0", "1e-05", "", "+2.5", "1.5E+3", ".25", "7.", "123456789012345678901234",
-               "5e-324", "1.7976931348623157e308", "2.2250738585072014e-308", "0.1", "-3.25e-7"]
+               "5e-324", "1.7976931348623157e308", "2.2250738585072014e-308", "0.1", "-3.25e-7", "nan", "inf"]
     cells_b = ["0.5000000000000001", "0.0", "1.0000000000000001e-05", "3.5", "2.5", "1500", "0.25", "7",
                "123456789012345678901235", "1e-323", "1.7976931348623155e308", "2.225073858507201e-308",
-               "0.10000000000000002", "-3.2500000000000005e-07"]
+               "0.10000000000000002", "-3.2500000000000005e-07", "", "inf"]
     rng = np.random.default_rng(7)
     rows_a, rows_b = [], []
     for k in range(400):
@@ -463,34 +452,41 @@ def test_whole_block_and_cell_by_cell_readings_agree(tmp_path, monkeypatch):
         rb = list(ra)
         if k % 3:                                           # two of three rows differ somewhere
             j = 1 + int(rng.integers(4))
-            rb[j] = cells_b[cells_a.index(ra[j])] if ra[j] in cells_a else ra[j]
+            rb[j] = cells_b[cells_a.index(ra[j])]
         if k == 200:
-            rb[2] = '"' + rb[2] + '"'                       # a quoted cell: that block is read carefully
+            rb[2] = '"' + rb[2] + '"'                       # a quoted cell: polars' page is declined
+        if k == 300:
+            rb[3] = " " + rb[3] + " "                       # spaces around a number, likewise
         rows_a.append(ra)
         rows_b.append(rb)
     a, b = tmp_path / "a.csv", tmp_path / "b.csv"
     a.write_bytes(("\r\n".join([",".join(header)] + [",".join(r) for r in rows_a]) + "\r\n").encode())
     b.write_bytes(("\n".join([",".join(header)] + [",".join(r) for r in rows_b]) + "\n").encode())
 
-    read = []
-    real = tc.Cells.values
-    monkeypatch.setattr(tc.Cells, "values", lambda self, idx: read.append(len(idx)) or real(self, idx))
+    parsed = []
+    real = TraceReader.parse
+    monkeypatch.setattr(TraceReader, "parse", lambda self, *a: parsed.append(1) or real(self, *a))
     fast = compare(a, b, 1e-9, chunk_bytes=2000).to_dict()
-    assert sum(read) > 100                                   # the whole-block reading did the work
-    monkeypatch.setattr(tc.Cells, "values", lambda self, idx: None)
+    assert len(parsed) > 10                                  # polars did the work
+    monkeypatch.setattr(TraceReader, "parse", lambda self, *a: None)
     careful = compare(a, b, 1e-9, chunk_bytes=2000).to_dict()
     assert fast == careful
 
-    def dev(x, y):
-        if x == "" and y == "":
+    def value(c):
+        c = c.strip().strip('"').strip()
+        return math.nan if c == "" else float(c)
+
+    def dev(x, y, j):
+        x, y = value(x), value(y)
+        if math.isnan(x) and math.isnan(y) or x == y:
             return 0.0
-        if x == "" or y == "":
+        if math.isnan(x) or math.isnan(y) or not math.isfinite(y - x):
             return math.inf
-        d = float(y.strip('"')) - float(x)
+        d = y - x
         return abs(math.remainder(d, 2 * math.pi)) if header[j] == "theta" else abs(d)
 
     for j, name in enumerate(header[1:], start=1):
-        devs = [dev(ra[j], rb[j]) for ra, rb in zip(rows_a, rows_b)]
+        devs = [dev(ra[j], rb[j], j) for ra, rb in zip(rows_a, rows_b)]
         want = max(devs)
         got = fast["columns"][name]
         assert (got["max_deviation"] if got["max_deviation"] is not None else math.inf) == want, name

@@ -1,6 +1,6 @@
-"""Benchmarks for Trundle's engine, trace writer, batch runner and start-up.
+"""Benchmarks for Trundle's engine, trace writer and reader, batch runner and start-up.
 
-    python tools/bench.py [--repeat 3] [--quick]
+    python tools/bench.py [--repeat 3] [--skip 4,6] [--only 13,14] [--root OTHER_CHECKOUT]
 
 Each case runs in a fresh Python process (so peak memory is its own), several
 times; the table shows the median.  Cases:
@@ -32,14 +32,23 @@ times; the table shows the median.  Cases:
 12. clearance of a 100,000-row run (the four-module base weaving along a 50 m corridor, dt
     1 ms) against 200 wall segments: the nearest approach to every segment and the first
     contact (what the checks compute), then the same with the swept area; and the peak memory
-    the measuring adds over 10^5 and 10^6 rows fed in chunks (flat: it keeps only minima).
+    the measuring adds over 10^5 and 10^6 rows fed in chunks (flat: it keeps only minima);
 13. ``trundle study`` of 1,000 variants (wheel radius x track x max_spin of the ward cart,
    10 x 10 x 10) of a 10 s scenario at 100 Hz, no cache, whole process, ``--jobs 1``
    and all cores; beside it the time one variant takes in a warm process, split into
    building and checking it (robot, scenario) and running it.
+14. the trace writer alone: the 1,000,001 rows of case 1's run, kept in memory, handed to
+    ``TraceWriter`` in blocks of 32,768 rows, as CSV and as Parquet: rows/s, CPU seconds (all
+    threads) and file size;
+15. ``trundle diff`` of two million-row traces (the two-castor cart of case 3): identical, and
+    every row differing (the second run's right wheel 0.1 um larger), as CSV and as Parquet;
+    wall time and peak memory.
 
 Peak memory is the largest resident size of the process (and of any processes it
-starts), sampled.
+starts), sampled.  CPU seconds are worth a look on a shared machine, where wall
+time also measures the neighbours.  ``--root DIR`` measures the ``sim`` package
+of another checkout (say the previous version, from ``git worktree add``) with
+this file's cases 1 to 8, 13 and 14.
 
 Scenario files are generated (seeded) into a temporary folder.
 """
@@ -156,9 +165,24 @@ def _peak_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
-def _one(case: str, folder: str) -> dict:
+def _write_diff_cases(folder: str) -> None:
+    """The pair of case 15: the two-castor cart, and the same with its right wheel 0.1 um larger."""
+    with open(os.path.join(ROBOTS, "ward-cart.yaml")) as fh:
+        text = fh.read()
+    changed = text.replace("name: right, type: fixed, x: 0.0, y: -0.22, radius: 0.08,",
+                           "name: right, type: fixed, x: 0.0, y: -0.22, radius: 0.0800001,")
+    assert changed != text
+    with open(os.path.join(folder, "ward-cart-b.yaml"), "w") as fh:
+        fh.write(changed)
+    with open(os.path.join(folder, "castors.yaml")) as fh:
+        scen = fh.read()
+    with open(os.path.join(folder, "castors-b.yaml"), "w") as fh:
+        fh.write(scen.replace(os.path.join(ROBOTS, "ward-cart.yaml"), os.path.join(folder, "ward-cart-b.yaml")))
+
+
+def _one(case: str, folder: str, root: str = ROOT) -> dict:
     """Run one case in this process; return measurements."""
-    sys.path.insert(0, ROOT)
+    sys.path.insert(0, root)
     from sim import load_scenario, run_scenario
     if case in ("1", "2"):
         scen = load_scenario(os.path.join(folder, "steered.yaml"))
@@ -186,6 +210,28 @@ def _one(case: str, folder: str) -> dict:
         t = time.perf_counter()
         res = run_scenario(scen)
         return {"steps": res.rows, "wall": time.perf_counter() - t, "peak_mb": _peak_mb()}
+    if case == "14":
+        import numpy as np
+        from sim.traces import writer as W
+        scen = load_scenario(os.path.join(folder, "steered.yaml"))
+        res = run_scenario(scen, keep=True)
+        header = list(res.trace)
+        rows = np.column_stack([res.trace[c] for c in header])
+        del res
+        out = {"rows": len(rows), "columns": len(header)}
+        for fmt in ("csv", "parquet"):
+            if fmt == "parquet" and not hasattr(W, "is_parquet_path"):
+                continue                                  # a version without Parquet
+            path = os.path.join(folder, "w." + fmt)
+            t, c = time.perf_counter(), time.process_time()
+            w = W.TraceWriter(path, header)
+            for i in range(0, len(rows), 32768):
+                w.write_block(rows[i:i + 32768])
+            w.close()
+            out[fmt] = {"wall": time.perf_counter() - t, "cpu": time.process_time() - c,
+                        "mb": os.path.getsize(path) / 1e6}
+            os.remove(path)
+        return out
     if case == "7":
         from sim import Simulator, load_robot
         robot = load_robot(os.path.join(ROBOTS, "quad-steer.yaml"))
@@ -431,16 +477,49 @@ def _study_split(folder: str, n: int = 50) -> dict:
     return {"build": build / n, "run": run / n}
 
 
-def _sub(case, folder, env=None) -> dict:
-    r = subprocess.run([sys.executable, __file__, "--one", case, "--folder", folder],
+def _sub(case, folder, env=None, root=ROOT) -> dict:
+    r = subprocess.run([sys.executable, __file__, "--one", case, "--folder", folder, "--root", root],
                        capture_output=True, text=True, check=True, env=env)
     return json.loads(r.stdout.strip().splitlines()[-1])
 
 
-def _timed(cmd) -> float:
+def _timed(cmd, root=ROOT) -> float:
     t = time.perf_counter()
-    subprocess.run(cmd, capture_output=True, check=False, cwd=ROOT)
+    subprocess.run(cmd, capture_output=True, check=False, cwd=root,
+                   env=dict(os.environ, PYTHONPATH=root + os.pathsep + os.environ.get("PYTHONPATH", "")))
     return time.perf_counter() - t
+
+
+def _diff_case(folder, root, repeat) -> list:
+    """Case 14: make the traces with ``root``'s writer, then time its ``trundle diff`` on them."""
+    import shutil
+    _write_diff_cases(folder)
+    code = ("import sys; sys.path.insert(0, {root!r}); from sim import load_scenario, run_scenario; "
+            "run_scenario(load_scenario({scen!r}), csv={out!r})")
+    fmts = ["csv"] + (["parquet"] if os.path.isfile(os.path.join(root, "sim", "traces", "read.py")) else [])
+    out = []
+    for fmt in fmts:
+        paths = {}
+        for name, scen in (("a", "castors.yaml"), ("b", "castors-b.yaml")):
+            paths[name] = os.path.join(folder, f"diff-{name}.{fmt}")
+            subprocess.run([sys.executable, "-c", code.format(root=root, scen=os.path.join(folder, scen),
+                                                              out=paths[name])], check=True, cwd=root)
+        paths["a2"] = os.path.join(folder, f"diff-a2.{fmt}")
+        shutil.copyfile(paths["a"], paths["a2"])
+        for label, other in (("identical", "a2"), ("every row differs", "b")):
+            walls, peaks = [], []
+            for _ in range(repeat):
+                cmd = [sys.executable, "-m", "sim", "diff", paths["a"], paths[other]]
+                with _PeakTree() as mem:
+                    walls.append(_timed(cmd, root))
+                peaks.append(mem.peak)
+            out.append({"fmt": fmt, "label": label, "wall": statistics.median(walls), "peak_mb": max(peaks),
+                        "mb": os.path.getsize(paths["a"]) / 1e6})
+        for p in paths.values():
+            for q in (p, p + ".meta.json"):
+                if os.path.exists(q):
+                    os.remove(q)
+    return out
 
 
 def main(argv=None) -> int:
@@ -449,11 +528,17 @@ def main(argv=None) -> int:
     ap.add_argument("--one", help=argparse.SUPPRESS)
     ap.add_argument("--folder", help=argparse.SUPPRESS)
     ap.add_argument("--skip", default="", help="comma-separated case numbers to skip")
+    ap.add_argument("--only", default="", help="comma-separated case numbers to run (default all)")
+    ap.add_argument("--root", default=ROOT, help="checkout whose sim package is measured (default this one)")
     args = ap.parse_args(argv)
+    root = os.path.abspath(args.root)
     if args.one:
-        print(json.dumps(_one(args.one, args.folder)))
+        print(json.dumps(_one(args.one, args.folder, root)))
         return 0
     skip = set(filter(None, args.skip.split(",")))
+    if args.only:
+        skip = {str(c) for c in range(1, 15)} - set(args.only.split(","))
+    extra = []
     rows = []
     with tempfile.TemporaryDirectory(prefix="trundle-bench-") as folder:
         _write_cases(folder)
@@ -463,7 +548,7 @@ def main(argv=None) -> int:
                             ("3", "diff drive + castors, 1e6 steps")):
             if case in skip:
                 continue
-            runs = [_sub(case, folder) for _ in range(args.repeat)]
+            runs = [_sub(case, folder, root=root) for _ in range(args.repeat)]
             wall = med([r["wall"] for r in runs])
             steps = runs[0]["steps"]
             row = {"case": case, "label": label, "steps": steps, "wall_s": wall,
@@ -477,7 +562,7 @@ def main(argv=None) -> int:
             # alternate the two so that both see the same machine: on a shared host its speed
             # drifts over minutes; the ratio is the median of the pairs' ratios
             cmd = [sys.executable, "-m", "sim", "batch", os.path.join(folder, "batch")]
-            pairs = [(_timed(cmd + ["--jobs", "1"]), _timed(cmd + ["--jobs", str(os.cpu_count() or 1)]))
+            pairs = [(_timed(cmd + ["--jobs", "1"], root), _timed(cmd + ["--jobs", str(os.cpu_count() or 1)], root))
                      for _ in range(args.repeat)]
             one, allc = med([p[0] for p in pairs]), med([p[1] for p in pairs])
             rows.append({"case": "4", "label": f"batch of 200 x 10 s, --jobs 1 vs {os.cpu_count()}",
@@ -496,11 +581,11 @@ def main(argv=None) -> int:
                          "split": split})
         if "5" not in skip:
             cmd = [sys.executable, "-m", "sim", "analyze", os.path.join(ROBOTS, "ward-cart.yaml")]
-            wall = med([_timed(cmd) for _ in range(max(5, args.repeat))])
+            wall = med([_timed(cmd, root) for _ in range(max(5, args.repeat))])
             rows.append({"case": "5", "label": "start-up: trundle analyze (whole process)",
                          "steps": 0, "wall_s": wall, "steps_per_s": float("nan"), "peak_mb": float("nan")})
         if "7" not in skip:
-            runs = [_sub("7", folder) for _ in range(args.repeat)]
+            runs = [_sub("7", folder, root=root) for _ in range(args.repeat)]
             wall = med([r["wall"] for r in runs])
             naive = med([r["naive_steps_per_s"] for r in runs])
             rows.append({"case": "7", "label": "per-step API, sim.step(twist) loop", "steps": runs[0]["steps"],
@@ -508,10 +593,10 @@ def main(argv=None) -> int:
                          "ratio": runs[0]["steps"] / wall / naive, "naive_steps_per_s": naive,
                          "peak_mb": max(r["peak_mb"] for r in runs)})
         if "8" not in skip:
-            _sub("8", folder)  # make sure the cache is warm
-            warm = [_sub("8", folder) for _ in range(args.repeat)]
+            _sub("8", folder, root=root)  # make sure the cache is warm
+            warm = [_sub("8", folder, root=root) for _ in range(args.repeat)]
             with tempfile.TemporaryDirectory(prefix="trundle-numba-") as cache:
-                cold = _sub("8", folder, env=dict(os.environ, NUMBA_CACHE_DIR=cache))
+                cold = _sub("8", folder, env=dict(os.environ, NUMBA_CACHE_DIR=cache), root=root)
             w, st = med([r["wall"] for r in warm]), med([r["steady"] for r in warm])
             rows.append({"case": "8", "label": "first stretch, fresh process, cache warm", "steps": 1000,
                          "wall_s": w, "steps_per_s": float("nan"), "peak_mb": float("nan"), "steady": st,
@@ -531,7 +616,7 @@ def main(argv=None) -> int:
                          "swept_s": med([x["swept_wall"] for x in runs]), "swept_area": r["swept_area"],
                          "nearest": r["nearest"], "mem": (r["mem_100000"], r["mem_1000000"])})
         if "6" not in skip:
-            r = _sub("6", folder)
+            r = _sub("6", folder, root=root)
             rows.append({"case": "6", "label": "one hour at 1 kHz, CSV streamed", "steps": r["steps"],
                          "wall_s": r["wall"], "steps_per_s": r["steps"] / r["wall"], "peak_mb": r["peak_mb"]})
         if "10" not in skip or "11" not in skip:
@@ -549,12 +634,24 @@ def main(argv=None) -> int:
                          "peak_mb": float("nan"), "engine": engine,
                          "server_cpu_us": med([r["server_cpu_us"] for r in runs]),
                          "client_cpu_us": med([r["client_cpu_us"] for r in runs])})
-    sys.path.insert(0, ROOT)
+        if "14" not in skip:
+            runs = [_sub("14", folder, root=root) for _ in range(args.repeat)]
+            for fmt in ("csv", "parquet"):
+                if fmt in runs[0]:
+                    wall = med([r[fmt]["wall"] for r in runs])
+                    extra.append(f"14   writer alone, {fmt:<8} {runs[0]['rows'] / wall:>10,.0f} rows/s  "
+                                 f"wall {wall:.2f} s  cpu {med([r[fmt]['cpu'] for r in runs]):.2f} s  "
+                                 f"{runs[0][fmt]['mb']:.0f} MB  ({runs[0]['columns']} columns)")
+        if "15" not in skip:
+            for r in _diff_case(folder, root, args.repeat):
+                extra.append(f"15   diff 10^6 rows, {r['fmt']:<8} {r['label']:<18} wall {r['wall']:.2f} s  "
+                             f"peak {r['peak_mb']:.0f} MB  ({r['mb']:.0f} MB per file)")
+    sys.path.insert(0, root)
     import numpy
-    from sim.traces import floatfmt
-    writer = "compiled (sim/_csvtext.c)" if floatfmt._csvtext is not None else "numpy (no C extension built)"
+    import polars
     print(f"machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}, "
-          f"numpy {numpy.__version__}, {platform.system()} {platform.release()}; CSV writer: {writer}")
+          f"numpy {numpy.__version__}, polars {polars.__version__}, {platform.system()} {platform.release()}; "
+          f"sim from {root}; load average {os.getloadavg()[0]:.1f}")
     print(f"{'case':<5}{'what':<46}{'steps':>10}{'wall s':>9}{'steps/s':>12}{'ratio':>8}{'peak MB':>9}")
     for r in rows:
         ratio = f"{r['ratio']:.2f}x" if r["case"] in ("4", "13") else f"{r['ratio']:.1f}x" if "ratio" in r else ""
@@ -593,6 +690,8 @@ def main(argv=None) -> int:
             print(f"case 12 CPU time {r['cpu_s']:.2f} s; nearest approach {d:.4f} m to {name} ({contact} rows in "
                   f"contact); with the swept area ({r['swept_area']:.2f} m^2): {r['swept_s']:.2f} s; memory the "
                   f"measuring adds: {r['mem'][0]:.1f} MB over 1e5 rows, {r['mem'][1]:.1f} MB over 1e6 rows")
+    for line in extra:
+        print(line)
     return 0
 
 

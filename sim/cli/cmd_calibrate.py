@@ -3,7 +3,7 @@
 ROBOT.yaml is the geometry the base's odometry believes (nominal).  Exactly one of:
 
 ``--true TRUE.yaml``   simulate the square test (differential drive) on the base as built
-``--measured FILE``    square-test return errors taken on the real base (YAML or CSV)
+``--measured FILE``    square-test return errors taken on the real base (YAML, CSV or Parquet)
 ``--fit RUN.csv``      fit radii and mount positions to recorded runs (any layout; repeatable)
 
 Writes the corrected robot file (``-o``, default ``STEM-calibrated.yaml`` in the current directory,
@@ -25,9 +25,9 @@ def add_arguments(p):
     mode.add_argument("--true", metavar="TRUE.yaml", dest="true_robot",
                       help="simulate the square test on this robot file (the base as built)")
     mode.add_argument("--measured", metavar="FILE",
-                      help="return errors of a square test on the real base: YAML {side, cw, ccw} or CSV direction,x,y")
+                      help="return errors of a square test on the real base: YAML {side, cw, ccw}, or CSV or Parquet direction,x,y")
     mode.add_argument("--fit", metavar="RUN.csv", action="append",
-                      help="recorded run with ground truth (t,x,y,theta + NAME.counts or NAME.spin); repeatable")
+                      help="recorded run with ground truth (t,x,y,theta + NAME.counts or NAME.spin), CSV or Parquet; repeatable")
     p.add_argument("--runs", type=int, default=5, help="square test: runs per direction (default 5)")
     p.add_argument("--side", type=float, default=None, help="square side in m (default 4, or the file's)")
     p.add_argument("--speed", type=float, default=0.4, help="simulated square: leg speed m/s (default 0.4)")

@@ -9,7 +9,7 @@ HELP = ("drive a base by hand in a window, hold to drive (keyboard, or a gamepad
 def add_arguments(p):
     p.add_argument("robot", help="robot file (YAML)")
     p.add_argument("--record", metavar="PATH",
-                   help="write the trace CSV there, plus PATH-stem.commands.csv and PATH-stem.scenario.yaml "
+                   help="write the trace there (CSV, or Parquet for *.parquet), plus PATH-stem.commands.csv and PATH-stem.scenario.yaml "
                         "to replay it with trundle run")
     p.add_argument("--step", type=float, default=0.01, metavar="S", help="engine step in s (default 0.01)")
     p.add_argument("--align", default="wait", metavar="POLICY",

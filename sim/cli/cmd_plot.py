@@ -6,9 +6,9 @@ HELP = "plot a trace: path with heading and ICR, twist, wheel spin and steer, sl
 
 
 def add_arguments(p):
-    p.add_argument("trace", help="trace CSV (from trundle run --csv or trundle drive --record)")
+    p.add_argument("trace", help="trace, CSV or Parquet (from trundle run --csv or trundle drive --record)")
     p.add_argument("-o", "--output", metavar="OUT.png", required=True, help="PNG file to write")
-    p.add_argument("--compare", metavar="OTHER.csv", help="overlay a second trace (dotted)")
+    p.add_argument("--compare", metavar="OTHER", help="overlay a second trace (dotted)")
     p.add_argument("--floor", metavar="FLOOR",
                    help="draw a floor (GeoJSON or YAML) with the swept area and the closest approach "
                         "of the first trace (needs --robot for the footprint)")

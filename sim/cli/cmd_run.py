@@ -8,7 +8,7 @@ HELP = "run a scenario: summary, checks, optional CSV trace"
 
 def add_arguments(p):
     p.add_argument("scenario", help="scenario file (YAML)")
-    p.add_argument("--csv", metavar="PATH", help="write the trace as CSV")
+    p.add_argument("--csv", metavar="PATH", help="write the trace there: CSV, or Parquet when PATH ends in .parquet")
     p.add_argument("--every", type=int, default=1, metavar="N", help="keep every N-th row in the CSV")
     p.add_argument("--json", action="store_true",
                    help="print the summary as one JSON object (checks, measured values, peak slip, final pose, "

@@ -9,11 +9,16 @@ exists, must be a regular file: a device node, FIFO or folder is never replaced.
 
 Streaming writers (traces) keep the file open: :class:`AtomicFile` with
 ``commit()`` / ``abort()``.  Whole files: :func:`write_bytes`, :func:`write_text`.
+:func:`signals_held` keeps Ctrl-C and SIGTERM from cutting a write in half
+(a trace block, a trace and its sidecar).
 """
 from __future__ import annotations
 
+import contextlib
 import os
+import signal
 import stat
+import threading
 
 from sim.errors import InputError
 
@@ -115,3 +120,35 @@ def write_bytes(path, data: bytes, what: str = "the file") -> None:
 def write_text(path, text: str, what: str = "the file", encoding: str = "utf-8") -> None:
     """Write ``text`` (``\\n`` line ends) to ``path`` through a temporary file."""
     write_bytes(path, text.encode(encoding), what)
+
+
+@contextlib.contextmanager
+def signals_held(signals=(signal.SIGINT, signal.SIGTERM)):
+    """Hold back SIGINT and SIGTERM until the block is done, then deliver the first one.
+
+    Python runs signal handlers in the main thread, between bytecodes, so a
+    Ctrl-C can otherwise land in the middle of a write.  Inside the block the
+    handlers only note the signal; afterwards the old handlers are back and
+    the noted signal is raised again (Ctrl-C still interrupts, just after the
+    write).  Blocking the signal in the kernel would not do: threads started
+    by libraries (polars, numba) would receive it instead.  Outside the main
+    thread this does nothing (no signal handler runs there).
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    got, old = [], {}
+
+    def note(signum, frame):
+        got.append(signum)
+
+    try:
+        for s in signals:
+            if signal.getsignal(s) is not None:       # None: a handler set outside Python, left alone
+                old[s] = signal.signal(s, note)
+        yield
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+        if got:
+            signal.raise_signal(got[0])

@@ -5,9 +5,7 @@ never fails half-way on bad input.
 """
 from __future__ import annotations
 
-import csv
 import hashlib
-import io
 import math
 import os
 from dataclasses import dataclass, replace
@@ -16,6 +14,7 @@ from sim.files import fields as F
 from sim.engine.simulator import ALIGN_POLICIES, DEFAULT_ALIGN_TOLERANCE
 from sim.errors import InputError
 from sim.files.robotfile import load_robot, robot_from_data
+from sim.files.table import read_table
 from sim.model.robot import Robot
 from sim.files.yamlread import load_file
 
@@ -400,59 +399,53 @@ def _wheels(value, where, robot):
 
 
 def _commands_csv(value, where, base_dir, robot):
+    """A command log (CSV or Parquet, see README "Scenario file") -> script entries."""
     if not isinstance(value, str):
-        raise where.error("expected the path of a CSV command log")
+        raise where.error("expected the path of a command log (CSV or Parquet)")
     path = value if os.path.isabs(value) else os.path.join(base_dir, value)
     src = os.path.relpath(path) if not os.path.isabs(value) else path
-    try:
-        with open(path, "rb") as fb:
-            raw = fb.read()
-    except OSError:
-        raise where.error(f"command log '{value}' not found") from None
-    try:
-        fh = io.StringIO(raw.decode("utf-8"), newline="")
-    except UnicodeDecodeError as exc:
-        raise InputError(src, raw[: exc.start].count(b"\n") + 1, "command log is not UTF-8 text") from None
+    if not os.path.isfile(path):
+        raise where.error(f"command log '{value}' not found")
+    table = read_table(path, "empty command log; expected a header row starting with t", "command log", src)
+    header, head = table.header, table.header_line
+    if not header or header[0] != "t":
+        raise InputError(src, head, "the first column must be 't' (s)")
+    cols = header[1:]
+    twist_cols = {"vx", "vy", "omega"}
+    is_twist = bool(cols) and set(cols) <= twist_cols
+    if not is_twist:
+        for c in cols:
+            name, _, part = c.partition(".")
+            if c in twist_cols:
+                raise InputError(src, head, "a command log holds either twist columns (vx, vy, omega) or wheel columns (NAME.spin, NAME.steer), not both")
+            if name not in robot.index or part not in ("spin", "steer"):
+                raise InputError(src, head, f"unknown column '{c}'{F.suggest(c, [n + '.spin' for n in robot.index])}; "
+                                 "allowed: t, vx, vy, omega, or NAME.spin / NAME.steer per wheel")
+            wh = robot.wheel(name)
+            if part == "spin" and not wh.driven:
+                raise InputError(src, head, f"column '{c}': wheel '{name}' is not driven")
+            if part == "steer" and wh.type != "steered":
+                raise InputError(src, head, f"column '{c}': wheel '{name}' is not steered")
     out = []
-    with fh:
-        reader = csv.reader(fh, strict=True)
-        header = F.csv_header(reader, src, "empty command log; expected a header row starting with t")
-        if not header or header[0] != "t":
-            raise InputError(src, 1, "the first column must be 't' (s)")
-        cols = header[1:]
-        twist_cols = {"vx", "vy", "omega"}
-        is_twist = bool(cols) and set(cols) <= twist_cols
-        if not is_twist:
-            for c in cols:
+    last = -math.inf
+    for ln, row in table.rows:
+        vals = [table.number(cell, ln, c) for c, cell in zip(header, row)]
+        t = vals[0]
+        if t < 0 or t <= last:
+            raise table.error(ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")
+        last = t
+        line = ln if isinstance(ln, int) else None
+        if is_twist:
+            d = dict(zip(cols, vals[1:]))
+            out.append(Command(t, "twist", (d.get("vx", 0.0), d.get("vy", 0.0), d.get("omega", 0.0)), line))
+        else:
+            cmds = {}
+            for c, v in zip(cols, vals[1:]):
                 name, _, part = c.partition(".")
-                if c in twist_cols:
-                    raise InputError(src, 1, "a command log holds either twist columns (vx, vy, omega) or wheel columns (NAME.spin, NAME.steer), not both")
-                if name not in robot.index or part not in ("spin", "steer"):
-                    raise InputError(src, 1, f"unknown column '{c}'{F.suggest(c, [n + '.spin' for n in robot.index])}; "
-                                     "allowed: t, vx, vy, omega, or NAME.spin / NAME.steer per wheel")
-                wh = robot.wheel(name)
-                if part == "spin" and not wh.driven:
-                    raise InputError(src, 1, f"column '{c}': wheel '{name}' is not driven")
-                if part == "steer" and wh.type != "steered":
-                    raise InputError(src, 1, f"column '{c}': wheel '{name}' is not steered")
-        last = -math.inf
-        for ln, row in F.csv_records(reader, src, len(header)):
-            vals = [F.cell_number(cell, src, ln, c) for c, cell in zip(header, row)]
-            t = vals[0]
-            if t < 0 or t <= last:
-                raise InputError(src, ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")
-            last = t
-            if is_twist:
-                d = dict(zip(cols, vals[1:]))
-                out.append(Command(t, "twist", (d.get("vx", 0.0), d.get("vy", 0.0), d.get("omega", 0.0)), ln))
-            else:
-                cmds = {}
-                for c, v in zip(cols, vals[1:]):
-                    name, _, part = c.partition(".")
-                    cmds.setdefault(name, {})[part] = v
-                out.append(Command(t, "wheels", cmds, ln))
+                cmds.setdefault(name, {})[part] = v
+            out.append(Command(t, "wheels", cmds, line))
     if not out:
-        raise InputError(src, 2, "command log has no rows")
+        raise InputError(src, 2 if head else None, "command log has no rows")
     return out
 
 

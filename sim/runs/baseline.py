@@ -1,31 +1,31 @@
 """Baselines: run a scenario against a recorded trace, or record one.
 
-A baseline is an ordinary trace CSV plus its sidecar ``.meta.json``
-(:mod:`sim.tracemeta`).  :func:`run_against` runs the scenario with the
-baseline's decimation (``every`` in the sidecar), compares the new trace
-with :func:`sim.tracediff.compare` and, when they diverge, says what changed
-in between (scenario or robot content, step, version).  :func:`record`
-writes a baseline and says whether it changed.
+A baseline is an ordinary trace (CSV, or Parquet) plus its sidecar
+``.meta.json`` (:mod:`sim.traces.meta`).  :func:`run_against` runs the
+scenario with the baseline's decimation (``every`` in the sidecar), compares
+the new trace with :func:`sim.traces.diff.compare` and, when they diverge,
+says what changed in between (scenario or robot content, step, version).
+:func:`record` writes a baseline only when the new run differs from the old
+one beyond the tolerance, or its metadata changed (so a refresh never
+commits rounding noise), and says which.
 
 Baselines are kept small: a run of more than ``MAX_ROWS`` steps keeps every
 N-th row, N = ceil(steps / MAX_ROWS) (the last row always).
 """
 from __future__ import annotations
 
-import contextlib
 import filecmp
 import math
 import os
 import shutil
-import signal
 import tempfile
-import threading
 
 from sim.errors import InputError
+from sim.files.atomic import signals_held
 from sim.runs.runner import run_scenario
-from sim.traces.tolerance import DEFAULT_TOLERANCE
 from sim.traces.diff import compare
 from sim.traces.meta import meta_path, provenance_notes, read_meta
+from sim.traces.tolerance import DEFAULT_TOLERANCE
 
 MAX_ROWS = 2000
 
@@ -70,55 +70,44 @@ def run_against(scen, baseline, tol=DEFAULT_TOLERANCE, rules=(), csv=None, every
     return res, rep, notes
 
 
-@contextlib.contextmanager
-def _uninterrupted():
-    """Hold back SIGINT and SIGTERM (Unix, main thread) until the block is done."""
-    block = getattr(signal, "pthread_sigmask", None)
-    if block is None or threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    old = block(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
-    try:
-        yield
-    finally:
-        block(signal.SIG_SETMASK, old)
-
-
 def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
-    """Write the baseline of ``scen`` at ``baseline`` (and its sidecar).
+    """Record the baseline of ``scen`` at ``baseline`` (and its sidecar), when it changed.
 
     Returns ``(run_result, change, report)``: change is ``new``, ``changed``
-    (the trace differs), ``metadata`` (same trace bytes, the sidecar differs:
-    say a new robot hash) or ``unchanged``; ``report`` compares the old
-    baseline with the new trace when the trace changed (else None).
-    Files are replaced atomically; an unchanged baseline is not touched, and
-    nothing is written when the run was interrupted (change None).
+    (the new run differs from the old trace beyond the tolerance, or not at
+    the same rows), ``metadata`` (the trace is kept, the sidecar differs:
+    say a new robot hash or version) or ``unchanged``; ``report`` compares
+    the old baseline with the new run when their bytes differ (else None).
+    A trace within tolerance is not rewritten.  Files are replaced
+    atomically, the trace before its sidecar, with Ctrl-C held back in
+    between; nothing is written when the run was interrupted (change None).
     """
     baseline = os.fspath(baseline)
     folder = os.path.dirname(os.path.abspath(baseline))
     os.makedirs(folder, exist_ok=True)
     tmp = tempfile.mkdtemp(prefix=".trundle-", dir=folder)
     try:
-        new = os.path.join(tmp, "new.csv")
+        new = os.path.join(tmp, "new" + os.path.splitext(baseline)[1])
         res = run_scenario(scen, csv=new, every=baseline_every(scen))
         if res.interrupted:  # a cut-off run must never replace a baseline
             return res, None, None
         old_exists = os.path.isfile(baseline)
-        same_csv = old_exists and filecmp.cmp(new, baseline, shallow=False)
-        same = (same_csv and os.path.isfile(meta_path(baseline))
-                and filecmp.cmp(meta_path(new), meta_path(baseline), shallow=False))
+        keep_trace = old_exists and filecmp.cmp(new, baseline, shallow=False)
         report = None
-        if old_exists and not same_csv:
+        if old_exists and not keep_trace:
             try:
                 report = compare(baseline, new, tol, rules)
+                keep_trace = not report.diverged and report.all_matched
             except InputError:
                 report = None                      # the old file was broken: just replace it
-        with _uninterrupted():  # the trace and its sidecar change together
-            if not same_csv:
+        same_meta = (keep_trace and os.path.isfile(meta_path(baseline))
+                     and filecmp.cmp(meta_path(new), meta_path(baseline), shallow=False))
+        with signals_held():  # the trace and its sidecar change together
+            if not keep_trace:
                 os.replace(new, baseline)
-            if not same:
+            if not same_meta:
                 os.replace(meta_path(new), meta_path(baseline))
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
-    change = ("unchanged" if same else "metadata" if same_csv else "changed" if old_exists else "new")
+    change = ("unchanged" if same_meta else "metadata" if keep_trace else "changed" if old_exists else "new")
     return res, change, report

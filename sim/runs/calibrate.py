@@ -52,7 +52,6 @@ limits are lifted for this drive.  Other layouts: :mod:`sim.geomfit`.
 """
 from __future__ import annotations
 
-import csv
 import math
 import os
 from dataclasses import dataclass, replace
@@ -62,7 +61,7 @@ import numpy as np
 from sim.files import fields as F
 from sim.engine.simulator import Simulator
 from sim.errors import InputError
-from sim.files.fields import cell_number, csv_header, csv_records
+from sim.files.table import is_parquet, read_table
 from sim.theory.kinematics import inverse_matrix
 from sim.odometry.encoders import Odometer, OdometrySpec
 from sim.model.robot import Robot
@@ -425,11 +424,12 @@ def square_test(true: Robot, belief: Robot, runs=5, side=DEFAULT_SIDE, speed=0.4
 # -- measured returns from a file ----------------------------------------------
 def read_runs(path, side: float | None = None) -> SquareRuns:
     """Return errors taken on a real base: YAML ``{side, cw: [[x, y], ...], ccw: [...]}``
-    or CSV with columns ``direction,x,y`` (direction cw or ccw).  m, start frame,
-    actual minus odometry.  ``side`` (m) from the command line, if given."""
+    or a table (CSV, or Parquet) with columns ``direction,x,y`` (direction cw or
+    ccw).  m, start frame, actual minus odometry.  ``side`` (m) from the command
+    line, if given."""
     source = os.fspath(path)
-    if source.lower().endswith(".csv"):
-        return _read_csv(source, side)
+    if source.lower().endswith(".csv") or is_parquet(source):
+        return _read_table(source, side)
     data = load_file(source)
     where = F.Where(source, "", getattr(data, "line", 1) or 1)
     data = F.expect_map(data, where, "a mapping {side, cw, ccw}")
@@ -465,25 +465,21 @@ def _side(data, where, side):
     return DEFAULT_SIDE if side is None else side
 
 
-def _read_csv(source, side):
-    try:
-        fh = open(source, newline="", encoding="utf-8")
-    except OSError as exc:
-        raise InputError(source, None, f"cannot read: {exc.strerror}") from None
+def _read_table(source, side):
+    table = read_table(source, "empty file; expected a header row direction,x,y")
     pts = {"cw": [], "ccw": []}
     first = {"cw": None, "ccw": None}
-    with fh:
-        reader = csv.reader(fh)
-        header = [h.lower() for h in csv_header(reader, source, "empty file; expected a header row direction,x,y")]
-        if sorted(header) != ["direction", "x", "y"]:
-            raise InputError(source, 1, f"expected the columns direction,x,y (in any order), got {','.join(header)}")
-        col = {h: i for i, h in enumerate(header)}
-        for ln, row in csv_records(reader, source, 3):
-            d = row[col["direction"]].strip().lower()
-            if d not in pts:
-                raise InputError(source, ln, f"direction must be cw or ccw, got '{row[col['direction']]}'")
-            pts[d].append([cell_number(row[col[c]], source, ln, c, "m") for c in ("x", "y")])
-            first[d] = first[d] or ln
+    header = [h.lower() for h in table.header]
+    if sorted(header) != ["direction", "x", "y"]:
+        raise InputError(source, table.header_line,
+                         f"expected the columns direction,x,y (in any order), got {','.join(header)}")
+    col = {h: i for i, h in enumerate(header)}
+    for ln, row in table.rows:
+        d = table.text(row[col["direction"]]).strip().lower()
+        if d not in pts:
+            raise table.error(ln, f"direction must be cw or ccw, got '{table.text(row[col['direction']])}'")
+        pts[d].append([table.number(row[col[c]], ln, c, "m") for c in ("x", "y")])
+        first[d] = first[d] or (ln if isinstance(ln, int) else None)
     L = DEFAULT_SIDE if side is None else side
     return SquareRuns(L, np.array(pts["cw"], float).reshape(-1, 2), np.array(pts["ccw"], float).reshape(-1, 2),
                       source, (first["cw"], first["ccw"]))

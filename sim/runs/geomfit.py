@@ -1,6 +1,6 @@
 """Effective wheel radii and mount positions fitted to recorded runs (any layout).
 
-A recorded run is a CSV with the ground-truth pose ``t,x,y,theta`` (world, s,
+A recorded run is a table (CSV, or Parquet) with the ground-truth pose ``t,x,y,theta`` (world, s,
 m, m, rad; from a motion-capture system, or a Trundle trace) and, per
 measured wheel, ``NAME.counts`` (cumulative encoder counts, needs ``encoder``
 in the robot file) or ``NAME.spin`` (rad/s held from that row to the next, as
@@ -24,7 +24,6 @@ Pure numpy.
 """
 from __future__ import annotations
 
-import csv
 import math
 import os
 from dataclasses import dataclass, replace
@@ -32,10 +31,10 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from sim.errors import InputError
-from sim.files.fields import cell_number, csv_header, csv_records
 from sim.odometry.encoders import DeadReckoner
 from sim.theory.se2 import integrate, wrap
 from sim.model.robot import Robot
+from sim.traces.read import TraceReader
 
 KEYS = ("radius", "x", "y")
 SVD_TOL = 1e-6          # singular values below this fraction of the largest: "undetermined"
@@ -84,43 +83,49 @@ def record_from_columns(cols: dict, robot: Robot, wheels, source="<trace>") -> R
 
 
 def read_record(path, robot: Robot, wheels) -> Record:
-    """Read a recorded run (see module docstring).  Raises InputError."""
+    """Read a recorded run, CSV or Parquet (see module docstring).  Raises InputError."""
     source = os.fspath(path)
     est = _measured(robot, wheels)
     need = ["t", "x", "y", "theta"]
     choose = {}
-    try:
-        fh = open(source, newline="", encoding="utf-8")
-    except OSError as exc:
-        raise InputError(source, None, f"cannot read the recorded run: {exc.strerror}") from None
-    with fh:
-        reader = csv.reader(fh)
-        header = csv_header(reader, source, "empty file; expected a header row t,x,y,theta,...")
-        have = set(header)
+    with TraceReader(source, require_t=False) as rd:
+        head = 1 if rd.kind == "csv" else None
+        have = set(rd.columns)
         for w in wheels:
             if f"{w}.counts" in have:
                 if robot.wheel(w).encoder is None:
-                    raise InputError(source, 1, f"column '{w}.counts' needs 'encoder: COUNTS' on wheel '{w}' "
+                    raise InputError(source, head, f"column '{w}.counts' needs 'encoder: COUNTS' on wheel '{w}' "
                                      f"in {robot.source}")
                 choose[w] = f"{w}.counts"
             elif f"{w}.spin" in have:
                 choose[w] = f"{w}.spin"
             else:
-                raise InputError(source, 1, f"no column '{w}.counts' or '{w}.spin' for measured wheel '{w}'")
+                raise InputError(source, head, f"no column '{w}.counts' or '{w}.spin' for measured wheel '{w}'")
         need += list(choose.values()) + [f"{robot.wheels[i].name}.steer" for i in est.read]
         missing = [c for c in need if c not in have]
         if missing:
-            raise InputError(source, 1, f"missing column(s): {', '.join(missing)}")
-        at = [header.index(c) for c in need]
-        rows = []
-        for ln, row in csv_records(reader, source, len(header)):
-            vals = [cell_number(row[j], source, ln, c) for c, j in zip(need, at)]
-            if rows and vals[0] <= rows[-1][0]:
-                raise InputError(source, ln, f"'t' must increase, got {vals[0]:g} after {rows[-1][0]:g}")
-            rows.append(vals)
-    if len(rows) < 3:
-        raise InputError(source, None, f"a recorded run needs at least 3 rows, got {len(rows)}")
-    arr = np.array(rows)
+            raise InputError(source, head, f"missing column(s): {', '.join(missing)}")
+        cols = [rd.columns.index(c) for c in need]
+        parts, last_t = [], -math.inf
+        for page in rd.pages():
+            v = page.values(cols=cols)
+            bad = np.argwhere(~np.isfinite(v))
+            if len(bad):
+                r, c = (int(x) for x in bad[0])
+                got = "a blank cell" if np.isnan(v[r, c]) else repr(float(v[r, c]))
+                raise page.error(r, f"column '{need[c]}': expected a finite number, got {got}")
+            t = v[:, 0]
+            prev = np.concatenate([[last_t], t[:-1]])
+            down = np.flatnonzero(t <= prev)
+            if down.size:
+                i = int(down[0])
+                raise page.error(i, f"'t' must increase, got {t[i]:g} after {prev[i]:g}")
+            last_t = float(t[-1])
+            parts.append(v)
+    rows = sum(len(p) for p in parts)
+    if rows < 3:
+        raise InputError(source, None, f"a recorded run needs at least 3 rows, got {rows}")
+    arr = np.vstack(parts)
     return record_from_columns({c: arr[:, i] for i, c in enumerate(need)}, robot, wheels, source)
 
 

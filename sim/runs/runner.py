@@ -15,9 +15,9 @@ from sim.engine.notes import Decisions
 from sim.engine.record import Block, columns
 from sim.engine.simulator import Simulator
 from sim.files.scenario import Scenario
+from sim.files.text import fixed
 from sim.theory.se2 import wrap
-from sim.traces.floatfmt import fixed
-from sim.traces.meta import write_meta
+from sim.traces.meta import trace_meta
 from sim.traces.writer import TraceWriter
 
 CHUNK = 8192  # rows per block: the compiled stretch between two looks at Ctrl-C, the writer, the summary
@@ -308,8 +308,9 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     Parameters
     ----------
     csv : path or None
-        Stream the trace there (written as ``csv + '.part'`` and renamed when
-        done, also when interrupted; removed if the run crashes).
+        Stream the trace there, CSV or (for ``*.parquet``) Parquet, with its
+        sidecar (written as ``csv + '.part'`` and renamed when done, also when
+        interrupted; removed if the run crashes).
     every : int
         Keep every N-th row in the CSV / kept trace (the last row always).
     keep : bool
@@ -344,7 +345,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     else:
         blocks = _blocks(scen, odo, on_row)
     header = columns(scen.robot, extra_cols)
-    writer = TraceWriter(csv, header) if csv else None
+    writer = TraceWriter(csv, header, trace_meta(scen, header, every)) if csv else None
     kept = [] if keep else None
     res = RunResult(scen)
     checks = _Checks(scen)
@@ -374,8 +375,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
             writer.abort()
         raise
     if writer:
-        writer.close()
-        write_meta(csv, scen, header, every, writer.rows, not res.interrupted)
+        writer.close(complete=not res.interrupted)    # the trace, then its sidecar
     if odo:
         res.odometry = odo.summary()
     res.decisions, res.notes = decisions.as_dict(), decisions.lines()

@@ -1,50 +1,54 @@
-"""Compare two CSV traces, streaming, with per-column tolerances.
+"""Compare two traces (CSV or Parquet), streaming, with per-column tolerances.
 
-:func:`compare` reads both files in chunks of about ``chunk_bytes`` (memory
-stays flat however long the traces are) and returns a :class:`DiffReport`:
-identical / within tolerance / diverged, the first row where any column leaves
-its tolerance, the largest deviation of every column with its time, and the
-final-pose difference.  Different column sets, row counts and step times are
-reported, not raised.
+:func:`compare` reads both files a page at a time (:mod:`sim.traces.read`;
+memory stays flat however long the traces are) and returns a
+:class:`DiffReport`: identical / within tolerance / diverged, the first row
+where any column leaves its tolerance, the largest deviation of every column
+with its time, and the final-pose difference.  Different column sets, row
+counts and times are reported, not raised.
 
 Rules
 -----
-- Rows are compared by position (row k of A with row k of B).
+- Rows are compared at equal times: row i of A with the row of B whose ``t``
+  is the same (to a millionth of the shorter step, or a few units in the last
+  place of t).  Traces on one grid (same step and ``every``) pair row k with
+  row k; a full-rate run and a thinned baseline, or runs with different
+  steps, are compared at the times both contain, and the report says how
+  many rows matched and which times were only in one file.
+- Diverged: some compared value leaves its tolerance, the column sets
+  differ, or the two traces do not start and end at shared times (one is
+  cut short).  Identical: every row matched and every value equal.
 - Deviation = ``|b - a|``; heading columns (``theta``, ``*.theta``,
   ``*_theta``, ``*.steer``, ``*.steer_cmd``) use the wrapped difference
   modulo 2 pi, in rad.
-- A blank cell (or ``nan``) equals a blank cell; blank against a number is a
-  divergence (deviation ``inf``).
+- A blank cell (``nan``, or a null in Parquet) equals a blank cell; blank
+  against a number is a divergence (deviation ``inf``).
 - Within tolerance means ``deviation <= tolerance`` in every compared cell.
-- Speed: rows whose bytes are identical in both files are not parsed, and in
-  rows that differ only the cells that differ are turned into numbers, a
-  block at a time with numpy (:class:`~sim.tracecsv.Cells`; the same doubles
-  as Python's ``float``).  Anything that reading declines (quoted cells,
-  ``nan`` text, a cell that is not a number) goes cell by cell through
-  :func:`~sim.tracecsv.floats`, which names the ``file:line``.  Identical
-  rows are still checked for cell count and allowed characters.
+- ``t`` must be a number in every row and increase.
+- Speed: when both traces are CSV files with the same columns, pages whose
+  bytes are equal (the same number of lines) are not parsed, only checked
+  for their shape.
 
 Bad input (missing file, no header, no ``t`` column, a row with the wrong
 number of cells, a cell that is not a number) raises
-:class:`~sim.errors.InputError` with ``file:line``.
+:class:`~sim.errors.InputError` with ``file:line`` (``file: row N`` in Parquet).
 """
 from __future__ import annotations
 
 import fnmatch
 import math
-import os
 from dataclasses import dataclass, field
-from itertools import compress
-from operator import itemgetter
 
 import numpy as np
 
 from sim.errors import InputError
 from sim.theory.se2 import wrap
+from sim.traces.read import CHUNK_BYTES, TraceReader
 from sim.traces.tolerance import DEFAULT_TOLERANCE
-from sim.traces.csvread import CHUNK_BYTES, Cells, TraceFile, floats
 
 POSE = ("x", "y", "theta")
+MATCH = 1e-6            # times within this fraction of the shorter step are the same time
+SAMPLE = 5              # times listed per file when some are only in one
 
 
 def is_heading(name: str) -> bool:
@@ -71,7 +75,7 @@ class ColumnDiff:
 
     ``max_deviation`` is in the column's unit (rad for heading columns), ``inf``
     when one trace has a blank where the other has a number; ``row`` (0-based
-    data row) and ``t`` (s, from trace A) say where; ``a``/``b`` the values
+    data row of A) and ``t`` (s, from trace A) say where; ``a``/``b`` the values
     there.  ``blanks`` counts rows blank in one trace only.
     """
 
@@ -92,10 +96,10 @@ class ColumnDiff:
 
 @dataclass
 class Divergence:
-    """The first row where some column leaves its tolerance.
+    """The first matched row where some column leaves its tolerance.
 
-    ``columns`` : list of (name, a, b, deviation, tolerance), the columns out of
-    tolerance in that row, in file order.
+    ``row`` is A's data row (0-based); ``columns`` : list of (name, a, b,
+    deviation, tolerance), the columns out of tolerance there, in file order.
     """
 
     row: int
@@ -105,8 +109,32 @@ class Divergence:
 
 
 @dataclass
+class OnlyTimes:
+    """Times (s) of rows that have no row at the same time in the other trace."""
+
+    count: int = 0
+    first: list = field(default_factory=list)     # the earliest few
+    last: float | None = None
+
+    def add(self, t) -> None:
+        if len(t):
+            self.count += len(t)
+            self.first += [float(v) for v in t[:SAMPLE - len(self.first)]]
+            self.last = float(t[-1])
+
+    def text(self) -> str:
+        shown = ", ".join(_t(v) for v in self.first)
+        if self.count > len(self.first):
+            shown += (", ..." if self.count > len(self.first) + 1 else ",") + f" {_t(self.last)}"
+        return f"{self.count} only in {{}} (t = {shown} s)"
+
+    def to_dict(self) -> dict:
+        return {"count": self.count, "first": self.first, "last": self.last}
+
+
+@dataclass
 class DiffReport:
-    """The outcome of :func:`compare`.  Rows are 0-based data rows (file line = row + 2)."""
+    """The outcome of :func:`compare`.  Rows are 0-based data rows (CSV file line = row + 2)."""
 
     path_a: str
     path_b: str
@@ -114,21 +142,27 @@ class DiffReport:
     columns_b: tuple
     rows_a: int = 0
     rows_b: int = 0
-    only_a: tuple = ()
+    only_a: tuple = ()                      # columns only in A
     only_b: tuple = ()
     compared: list = field(default_factory=list)
     first: Divergence | None = None
     step_a: float | None = None
     step_b: float | None = None
-    step_mismatch: tuple | None = None      # (row, t_a, t_b)
     final_a: tuple | None = None            # (x, y, theta) of the last row
     final_b: tuple | None = None
     equal: bool = True                      # every compared value equal
+    matched: int = 0                        # rows of A paired with a row of B at the same time
+    times_only_a: OnlyTimes = field(default_factory=OnlyTimes)
+    times_only_b: OnlyTimes = field(default_factory=OnlyTimes)
+    ends_matched: bool = True               # both traces start and end at shared times
+
+    @property
+    def all_matched(self) -> bool:
+        return self.matched == self.rows_a == self.rows_b
 
     @property
     def structure_differs(self) -> bool:
-        return bool(self.only_a or self.only_b or self.rows_a != self.rows_b
-                    or self.step_mismatch is not None)
+        return bool(self.only_a or self.only_b or not self.ends_matched)
 
     @property
     def diverged(self) -> bool:
@@ -139,7 +173,7 @@ class DiffReport:
         """``identical`` | ``within tolerance`` | ``diverged``."""
         if self.diverged:
             return "diverged"
-        return "identical" if self.equal else "within tolerance"
+        return "identical" if self.equal and self.all_matched else "within tolerance"
 
     @property
     def final_difference(self):
@@ -155,12 +189,10 @@ class DiffReport:
             names = ",".join(c[0] for c in self.first.columns[:3])
             more = "..." if len(self.first.columns) > 3 else ""
             return f"t={_t(self.first.t_a)} s {names}{more}"
-        if self.step_mismatch is not None:
-            return f"step times at row {self.step_mismatch[0]}"
         if self.only_a or self.only_b:
             return "column sets differ"
-        if self.rows_a != self.rows_b:
-            return f"rows {self.rows_a} vs {self.rows_b}"
+        if not self.ends_matched:
+            return f"times: {self.times_only_a.count} only in A, {self.times_only_b.count} only in B"
         return ""
 
     def text(self, label_a="A", label_b="B") -> str:
@@ -176,20 +208,21 @@ class DiffReport:
         if self.only_b:
             out.append(f"columns   only in {label_b}: {', '.join(self.only_b)}")
         if self.rows_a != self.rows_b:
-            n = min(self.rows_a, self.rows_b)
-            out.append(f"rows      {label_a} has {self.rows_a}, {label_b} has {self.rows_b}; "
-                       f"compared the first {n}")
-        if self.step_mismatch is not None:
-            r, ta, tb = self.step_mismatch
-            out.append(f"steps     step times differ from row {r} (line {r + 2}): "
-                       f"{label_a} t={_t(ta)} s, {label_b} t={_t(tb)} s")
+            out.append(f"rows      {label_a} has {self.rows_a}, {label_b} has {self.rows_b}")
+        if not self.all_matched:
+            parts = [f"compared {self.matched} rows at times in both"]
+            for only, lab in ((self.times_only_a, label_a), (self.times_only_b, label_b)):
+                parts.append(only.text().format(lab) if only.count else f"none only in {lab}")
+            out.append("times     " + "; ".join(parts))
+            if not self.ends_matched:
+                out.append("          the traces do not start and end at shared times (one is cut short?)")
         if self.first is not None:
             f = self.first
             parts = [f"{n} {_dev(d, is_heading(n))} (allowed {_num(tol)})" for n, a, b, d, tol in f.columns[:6]]
             if len(f.columns) > 6:
                 parts.append(f"and {len(f.columns) - 6} more columns")
             tb = "" if f.t_b == f.t_a else f" ({label_b} t={_t(f.t_b)} s)"
-            out.append(f"first     t={_t(f.t_a)} s{tb} (row {f.row}, line {f.row + 2}): " + "; ".join(parts))
+            out.append(f"first     t={_t(f.t_a)} s{tb} (row {f.row}): " + "; ".join(parts))
         moved = [c for c in self.compared if c.max_deviation > 0]
         if moved:
             out.append("largest   column                     deviation        at t (s)   allowed")
@@ -200,7 +233,7 @@ class DiffReport:
                            f"{_t(c.t):<10} {_num(c.tolerance)}{flag}{blank}")
         same = len(self.compared) - len(moved)
         if same:
-            out.append(f"same      {same} of {len(self.compared)} compared columns equal in every row")
+            out.append(f"same      {same} of {len(self.compared)} compared columns equal in every compared row")
         fd = self.final_difference
         if fd is not None:
             out.append(f"final     position {fd[0]:.6g} m, heading {math.degrees(fd[1]):.6g} deg")
@@ -218,8 +251,8 @@ class DiffReport:
             "a": {"path": self.path_a, "rows": self.rows_a, "step": self.step_a, "columns": len(self.columns_a)},
             "b": {"path": self.path_b, "rows": self.rows_b, "step": self.step_b, "columns": len(self.columns_b)},
             "only_a": list(self.only_a), "only_b": list(self.only_b),
-            "step_mismatch": None if self.step_mismatch is None else
-            {"row": self.step_mismatch[0], "t_a": num(self.step_mismatch[1]), "t_b": num(self.step_mismatch[2])},
+            "times": {"matched": self.matched, "ends_matched": self.ends_matched,
+                      "only_a": self.times_only_a.to_dict(), "only_b": self.times_only_b.to_dict()},
             "first_divergence": None if self.first is None else {
                 "row": self.first.row, "t": num(self.first.t_a), "t_b": num(self.first.t_b),
                 "columns": [{"column": n, "a": num(a), "b": num(b), "deviation": num(d),
@@ -247,23 +280,87 @@ def _dev(d, heading) -> str:
     return f"{d:.3e}" + (" rad" if heading else "")
 
 
-# -- comparing -----------------------------------------------------------------
-class _Compare:
-    """Accumulates deviations over aligned runs of rows."""
+def _deviation(va, vb, heading):
+    """Deviations of value pairs, shape (k, m); ``heading`` (m,) bool wraps modulo 2 pi.
 
-    def __init__(self, ta: TraceFile, tb: TraceFile, names, tols, tol_t):
-        self.ta, self.tb = ta, tb
-        self.names = names
-        self.ia = [ta.columns.index(n) for n in names]
-        self.ib = [tb.columns.index(n) for n in names]
-        self.ita, self.itb = ta.columns.index("t"), tb.columns.index("t")
-        self.tol = np.asarray(tols, float)
-        self.tol_t = tol_t
-        self.heading = np.array([is_heading(n) for n in names], bool)
-        self.same_layout = ta.columns == tb.columns
-        self.colmask = np.array([n in names for n in ta.columns], bool)
-        self.colpos = np.array([names.index(n) if n in names else -1 for n in ta.columns], int)
-        k = len(names)
+    Returns (deviation, blank_mismatch or None when no cell is blank).
+    ``|b - a|``; a blank (NaN) equals a blank, and against a number is ``inf``;
+    equal infinities deviate by 0.
+    """
+    with np.errstate(invalid="ignore", over="ignore"):
+        d = np.subtract(vb, va)
+        if heading.any():
+            h = np.flatnonzero(heading)
+            d[:, h] = np.remainder(d[:, h] + np.pi, 2 * np.pi) - np.pi
+        np.abs(d, out=d)
+    nan = np.isnan(d)
+    if not nan.any():
+        return d, None
+    na, nb = np.isnan(va), np.isnan(vb)
+    blank = na ^ nb
+    d[nan] = np.inf                               # blank against a number; inf - inf
+    d[(na & nb) | (nan & (va == vb))] = 0.0       # blank against blank; equal infinities
+    return d, blank
+
+
+# -- comparing -----------------------------------------------------------------
+class _Side:
+    """One trace's reading state: its pending rows (not yet paired) and what the report needs."""
+
+    def __init__(self, reader: TraceReader, names):
+        self.rd = reader
+        self.cols = [reader.columns.index(n) for n in names] + [reader.columns.index("t")]
+        self.t = np.empty(0)                      # pending rows: times (s),
+        self.v = np.empty((0, len(names)))        # compared values,
+        self.row = np.empty(0, np.int64)          # data rows
+        self.last_t = -math.inf                   # time of the last row read
+        self.done = False
+        self.last_page = None
+        self.first_matched = False
+        self.last_matched_row = -1
+        self.only = OnlyTimes()
+
+    def read(self, page) -> np.ndarray:
+        """The page's numbers (compared columns, then t), its times checked."""
+        values = page.values(cols=self.cols)
+        t = values[:, -1]
+        bad = np.flatnonzero(~np.isfinite(t))
+        if bad.size:
+            i = int(bad[0])
+            raise page.error(i, "column 't' is blank" if np.isnan(t[i]) else f"column 't' is {t[i]!r}")
+        if t[0] <= self.last_t or (t.size > 1 and not bool(np.all(t[1:] > t[:-1]))):
+            prev = np.concatenate([[self.last_t], t[:-1]])
+            i = int(np.flatnonzero(t <= prev)[0])
+            raise page.error(i, f"column 't' must increase from row to row: {t[i]!r} s after {prev[i]!r} s")
+        self.last_t = float(t[-1])
+        return values
+
+    def add(self, page, values) -> None:
+        """Append rows to the pending ones."""
+        self.t = np.concatenate([self.t, values[:, -1]])
+        self.v = np.concatenate([self.v, values[:, :-1]])
+        self.row = np.concatenate([self.row, page.first_row + np.arange(len(values))])
+
+    def keep(self, mask) -> None:
+        self.t, self.v, self.row = self.t[mask], self.v[mask], self.row[mask]
+
+    def matched(self, first, last) -> None:
+        """Rows ``first`` .. ``last`` (in increasing order) have partners."""
+        self.first_matched |= first == 0
+        self.last_matched_row = max(self.last_matched_row, int(last))
+
+
+class _Compare:
+    """Reads two traces side by side, pairs rows at equal times, accumulates deviations."""
+
+    def __init__(self, ra, rb, plan, match_tol):
+        self.a, self.b = _Side(ra, plan.names), _Side(rb, plan.names)
+        self.plan = plan
+        self.names = plan.names
+        self.tol = np.asarray(plan.tols, float)
+        self.heading = np.array([is_heading(n) for n in self.names], bool)
+        self.match_tol = match_tol
+        k = len(self.names)
         self.max_dev = np.zeros(k)
         self.max_row = np.full(k, -1)
         self.max_t = np.full(k, np.nan)
@@ -271,232 +368,156 @@ class _Compare:
         self.max_b = np.full(k, np.nan)
         self.blanks = np.zeros(k, int)
         self.first = None
-        self.step = None
         self.equal = True
+        self.matched = 0
+        self.same_text = ra.kind == rb.kind == "csv" and ra.columns == rb.columns
 
-    def state(self) -> dict:
-        """Everything a merge needs, as plain picklable values."""
-        return {"rows_a": self.ta.rows, "rows_b": self.tb.rows, "head_a": self.ta.head, "head_b": self.tb.head,
-                "last_a": self.ta.last, "last_b": self.tb.last, "first": self.first, "step": self.step,
-                "equal": self.equal, "blanks": self.blanks, "max_dev": self.max_dev, "max_row": self.max_row,
-                "max_t": self.max_t, "max_a": self.max_a, "max_b": self.max_b}
+    def run(self) -> None:
+        a, b = self.a, self.b
+        while not (a.done and b.done):
+            aligned = not (a.t.size or b.t.size)
+            if aligned and not a.done and not b.done:
+                self._pair()
+            elif not a.done and (b.done or a.last_t <= b.last_t):
+                self._read(a)
+            else:
+                self._read(b)
+            self._resolve()
 
-    def pair(self, la, lb, row0, line_a, line_b, width, cells_a=(None, 0), cells_b=(None, 0)):
-        """Compare aligned lines ``la[i]``, ``lb[i]`` = data row ``row0 + i``; cells at most ``width`` bytes.
-
-        ``cells_a`` = (Cells of the block holding ``la``, row of ``la[0]`` in it),
-        or (None, 0); the same for B.
-        """
-        idx = list(compress(range(len(la)), map(bytes.__ne__, la, lb)))
-        if not idx:
+    def _read(self, side) -> None:
+        page = side.rd.take()
+        if page is None:
+            side.done = True
             return
-        k = len(idx)
-        got = self._differing_fast(la, lb, idx, cells_a, cells_b, line_a, line_b)
-        if got is None:
-            got = self._differing_careful(_pick(la, idx), _pick(lb, idx), idx, line_a, line_b, width)
-        r, c, va, vb, t_ne, t_pairs, time_a, time_b = got
-        d, eq, blank = _deviation(va, vb, self.heading[c])
-        self.equal &= bool(eq.all())
-        ncomp = len(self.names)
-        if blank.any():
-            self.blanks += np.bincount(c[blank], minlength=ncomp)
-        D = np.zeros((ncomp, k))                   # deviations, column by column (0 where the bytes agree)
-        D[c, r] = d
-        at = np.empty((ncomp, k), np.int64)         # where D[m, j] came from in va, vb (cells that differ)
-        at[c, r] = np.arange(r.size)
-        if self.step is None and t_ne.size:
-            tA, tB = t_pairs()
-            dt, _, _ = _deviation(tA, tB, np.zeros(t_ne.size, bool))
-            bad = np.flatnonzero(dt > self.tol_t)
-            if bad.size:
-                j = bad[0]
-                self.step = (row0 + idx[t_ne[j]], float(tA[j]), float(tB[j]))
+        side.last_page = page
+        side.add(page, side.read(page))
+
+    def _pair(self) -> None:
+        """A page of A and as many rows of B.  Pages of equal bytes pair without being parsed;
+        pages with the same times pair row by row; anything else waits for :meth:`_resolve`."""
+        a, b = self.a, self.b
+        pa = a.rd.take()
+        if pa is None:
+            a.done = True
+            return
+        a.last_page = pa
+        pb = b.rd.take_like(pa) if self.same_text else b.rd.take(len(pa))
+        if pb is None:
+            b.done = True
+            a.add(pa, a.read(pa))
+            return
+        b.last_page = pb
+        n = len(pa)
+        if self.same_text and pa.data == pb.data:
+            pa.check()                             # the shape (the same bytes in both)
+            t = pa.values(rows=[0, n - 1], cols=[a.cols[-1]])[:, 0]
+            if np.isfinite(t).all() and t[0] > max(a.last_t, b.last_t) and t[-1] >= t[0]:
+                for side in (a, b):
+                    side.last_t = float(t[-1])
+                    side.matched(pa.first_row, pa.first_row + n - 1)
+                self.matched += n
+                return
+        va, vb = a.read(pa), b.read(pb)
+        if len(pb) == n and np.array_equal(va[:, -1], vb[:, -1]):
+            rows = pa.first_row + np.arange(n)
+            self._accumulate(va[:, :-1], vb[:, :-1], rows, va[:, -1], vb[:, -1])
+            a.matched(pa.first_row, pa.first_row + n - 1)
+            b.matched(pb.first_row, pb.first_row + n - 1)
+            self.matched += n
+            return
+        a.add(pa, va)
+        b.add(pb, vb)
+
+    def _resolve(self) -> None:
+        """Pair pending rows at equal times; settle rows that can have no partner any more."""
+        a, b = self.a, self.b
+        if a.t.size and b.t.size:
+            tol = np.maximum(self.match_tol, 4 * np.spacing(np.abs(a.t)))
+            j = np.searchsorted(b.t, a.t - tol, "left")
+            jc = np.minimum(j, b.t.size - 1)
+            hit = (j < b.t.size) & (np.abs(b.t[jc] - a.t) <= tol)
+            ia = np.flatnonzero(hit)
+            ib = jc[ia]
+            if ia.size > 1:                        # one partner each
+                first = np.concatenate([[True], ib[1:] != ib[:-1]])
+                ia, ib = ia[first], ib[first]
+            if ia.size:
+                self._accumulate(a.v[ia], b.v[ib], a.row[ia], a.t[ia], b.t[ib])
+                a.matched(a.row[ia[0]], a.row[ia[-1]])
+                b.matched(b.row[ib[0]], b.row[ib[-1]])
+                self.matched += ia.size
+                keep_a = np.ones(a.t.size, bool)
+                keep_a[ia] = False
+                keep_b = np.ones(b.t.size, bool)
+                keep_b[ib] = False
+                a.keep(keep_a)
+                b.keep(keep_b)
+        for side, other in ((a, b), (b, a)):
+            if not side.t.size:
+                continue
+            # no partner can come any more: the other trace is done, or already past this time
+            settled = np.ones(side.t.size, bool) if other.done else \
+                side.t + np.maximum(self.match_tol, 4 * np.spacing(np.abs(side.t))) < other.last_t
+            if settled.any():
+                side.only.add(side.t[settled])
+                side.keep(~settled)
+
+    def _accumulate(self, va, vb, rows, ta, tb) -> None:
+        """Fold matched rows (values (k, m), A's data rows (k,), times (k,)) into the report."""
+        d, blank = _deviation(va, vb, self.heading)
+        if self.equal:
+            same = va == vb
+            if blank is not None:
+                same |= np.isnan(va) & np.isnan(vb)
+            self.equal = bool(same.all())
+        if blank is not None:
+            self.blanks += blank.sum(axis=0)
         if self.first is None:
-            exceed = D > self.tol[:, None]
-            hit = np.flatnonzero(exceed.any(axis=0))
+            hit = np.flatnonzero((d > self.tol).any(axis=1))
             if hit.size:
-                j = hit[0]
-                cols = [(self.names[m], float(va[at[m, j]]), float(vb[at[m, j]]), float(D[m, j]),
-                         float(self.tol[m])) for m in np.flatnonzero(exceed[:, j])]
-                self.first = Divergence(row0 + idx[j], time_a(j), time_b(j), cols)
-        top = D.argmax(axis=1)
-        val = D[np.arange(ncomp), top]
-        for m in np.flatnonzero(val > self.max_dev):    # (a deviation > 0: that cell differs, at[] is set)
-            j = int(top[m])
-            self.max_dev[m] = val[m]
-            self.max_row[m] = row0 + idx[j]
-            self.max_t[m] = time_a(j)
-            self.max_a[m] = va[at[m, j]]
-            self.max_b[m] = vb[at[m, j]]
+                j = int(hit[0])
+                cols = [(self.names[m], float(va[j, m]), float(vb[j, m]), float(d[j, m]), float(self.tol[m]))
+                        for m in np.flatnonzero(d[j] > self.tol)]
+                self.first = Divergence(int(rows[j]), float(ta[j]), float(tb[j]), cols)
+        top = d.argmax(axis=0)
+        val = d[top, np.arange(d.shape[1])]
+        for m in np.flatnonzero(val > self.max_dev):
+            j = top[m]
+            self.max_dev[m], self.max_row[m], self.max_t[m] = val[m], rows[j], ta[j]
+            self.max_a[m], self.max_b[m] = va[j, m], vb[j, m]
 
-    def _differing_fast(self, la, lb, idx, cells_a, cells_b, line_a, line_b):
-        """The differing compared cells of rows ``idx``, read by :class:`Cells`; None if it declines.
-
-        Returns ``(r, c, va, vb, t_ne, t_pairs, time_a, time_b)``: row (index
-        into ``idx``) and compared-column index of each cell that differs in
-        bytes, its values in A and B; the rows whose ``t`` cells differ and a
-        function giving their times (s) in A and B; functions row -> time (s).
-        """
-        k, nca, ncb = len(idx), self.ta.nc, self.tb.nc
-        rows = np.asarray(idx, dtype=np.int64)
-        (A, oa), (B, ob) = cells_a, cells_b
-        if A is None:                              # (the careful reading normalised the block's lines)
-            A, oa = Cells.of(_pick(la, idx), nca), np.arange(k) - rows
-        if B is None:
-            B, ob = Cells.of(_pick(lb, idx), ncb), np.arange(k) - rows
-        if A is None or B is None:
-            return None
-        ra, rb = (rows + oa) * nca, (rows + ob) * ncb              # first cell of each row in A, B
-        if self.same_layout:
-            ne = A.differ(B, (ra[:, None] + np.arange(nca)).ravel(), (rb[:, None] + np.arange(ncb)).ravel())
-            ne = ne.reshape(k, nca)
-            t_ne = np.flatnonzero(ne[:, self.ita])
-            ne &= self.colmask
-            r, cf = np.divmod(np.flatnonzero(ne), nca)
-            c = self.colpos[cf]
-            fa, fb = ra[r] + cf, rb[r] + cf
-        else:
-            cells_a = (ra[:, None] + np.asarray(self.ia, int)).ravel()
-            cells_b = (rb[:, None] + np.asarray(self.ib, int)).ravel()
-            t_ne = np.flatnonzero(A.differ(B, ra + self.ita, rb + self.itb))
-            hit = np.flatnonzero(A.differ(B, cells_a, cells_b))
-            r, c = np.divmod(hit, len(self.names))
-            fa, fb = cells_a[hit], cells_b[hit]
-        va = A.values(fa)
-        vb = B.values(fb) if va is not None else None
-        if vb is None:
-            return None                            # a cell is not a number: the careful reading says where
-
-        def times(cells, first_cells, it, path, line0, rows_):
-            """Times (s) of ``rows_`` (indices into idx) from their t cells."""
-            at = (first_cells[rows_] + it).tolist()
-            v = cells.values(at) if len(at) > 16 else None
-            if v is None:                          # few cells, or a bad one: floats() raises with file:line
-                v = floats([cells.text(i) for i in at], lambda m: (path, line0 + idx[rows_[m]], "t"))
-            return v
-
-        def t_pairs():
-            return (times(A, ra, self.ita, self.ta.path, line_a, t_ne),
-                    times(B, rb, self.itb, self.tb.path, line_b, t_ne))
-
-        def time_a(j):
-            return float(times(A, ra, self.ita, self.ta.path, line_a, np.array([j]))[0])
-
-        def time_b(j):
-            return float(times(B, rb, self.itb, self.tb.path, line_b, np.array([j]))[0])
-
-        return r, c, va, vb, t_ne, t_pairs, time_a, time_b
-
-    def _differing_careful(self, la, lb, idx, line_a, line_b, width):
-        """As :meth:`_differing_fast`, cell by cell with :func:`floats` (its errors give ``file:line``)."""
-        k = len(idx)
-        nca, ncb = self.ta.nc, self.tb.nc
-        ca = b",".join(la).split(b",")
-        cb = b",".join(lb).split(b",")
-        if self.same_layout:
-            dt = f"S{max(width, 1)}"
-            ne = (np.array(ca, dtype=dt) != np.array(cb, dtype=dt)).reshape(k, nca)
-            t_ne = np.flatnonzero(ne[:, self.ita])
-            ne &= self.colmask
-            fa = np.flatnonzero(ne)
-            r, cf = np.divmod(fa, nca)
-            c = self.colpos[cf]
-            fb = fa
-        else:
-            A = np.array(ca, dtype=object).reshape(k, nca)
-            B = np.array(cb, dtype=object).reshape(k, ncb)
-            t_ne = np.flatnonzero(A[:, self.ita] != B[:, self.itb])
-            r, c = np.nonzero(A[:, self.ia] != B[:, self.ib])
-            fa = r * nca + np.asarray(self.ia, int)[c]
-            fb = r * ncb + np.asarray(self.ib, int)[c]
-        va = floats(_pick(ca, fa.tolist()), lambda i: (self.ta.path, line_a + idx[r[i]], self.names[c[i]]))
-        vb = floats(_pick(cb, fb.tolist()), lambda i: (self.tb.path, line_b + idx[r[i]], self.names[c[i]]))
-
-        def t_pairs():                             # times (s) of the rows whose t cells differ
-            tA = floats([ca[j * nca + self.ita] for j in t_ne], lambda i: (self.ta.path, line_a + idx[t_ne[i]], "t"))
-            tB = floats([cb[j * ncb + self.itb] for j in t_ne], lambda i: (self.tb.path, line_b + idx[t_ne[i]], "t"))
-            return tA, tB
-
-        def time_a(j):                             # time of differing row j (s)
-            return float(floats([ca[j * nca + self.ita]], lambda i: (self.ta.path, line_a + idx[j], "t"))[0])
-
-        def time_b(j):
-            return float(floats([cb[j * ncb + self.itb]], lambda i: (self.tb.path, line_b + idx[j], "t"))[0])
-
-        return r, c, va, vb, t_ne, t_pairs, time_a, time_b
-
-def _pick(seq, idx):
-    """``[seq[i] for i in idx]`` at C speed (a tuple or the list itself)."""
-    if len(idx) == len(seq):
-        return seq
-    if len(idx) == 1:
-        return (seq[idx[0]],)
-    return itemgetter(*idx)(seq) if idx else ()
+    def report(self) -> DiffReport:
+        plan, a, b = self.plan, self.a, self.b
+        rep = DiffReport(plan.path_a, plan.path_b, plan.columns_a, plan.columns_b,
+                         rows_a=a.rd.rows, rows_b=b.rd.rows, only_a=plan.only_a, only_b=plan.only_b,
+                         first=self.first, equal=self.equal, matched=self.matched,
+                         times_only_a=a.only, times_only_b=b.only, step_a=plan.step_a, step_b=plan.step_b)
+        rep.ends_matched = all(
+            (s.rd.rows == 0 and o.rd.rows == 0)
+            or (s.first_matched and s.last_matched_row == s.rd.rows - 1) for s, o in ((a, b), (b, a)))
+        rep.final_a, rep.final_b = _final(a), _final(b)
+        for j, n in enumerate(self.names):
+            cd = ColumnDiff(n, float(self.tol[j]), is_heading(n))
+            if self.max_row[j] >= 0:
+                cd.max_deviation = float(self.max_dev[j])
+                cd.row = int(self.max_row[j])
+                cd.t, cd.a, cd.b = float(self.max_t[j]), float(self.max_a[j]), float(self.max_b[j])
+            cd.blanks = int(self.blanks[j])
+            rep.compared.append(cd)
+        return rep
 
 
-def _deviation(va, vb, heading):
-    """Deviation of value pairs (shape (n,)): |b - a|, wrapped for heading; nan rules.
-
-    Returns (deviation, equal, blank_mismatch).
-    """
-    na, nb = np.isnan(va), np.isnan(vb)
-    with np.errstate(invalid="ignore", over="ignore"):
-        d = np.abs(vb - va)
-        if heading.any():
-            d[heading] = np.abs(np.remainder(vb[heading] - va[heading] + np.pi, 2 * np.pi) - np.pi)
-    eq = (va == vb) | (na & nb)
-    blank = na ^ nb
-    d[eq] = 0.0
-    d[np.isnan(d) | blank] = np.inf
-    return d, eq, blank
-
-
-def compare(path_a, path_b, tol: float = DEFAULT_TOLERANCE, rules=(), columns=None,
-            chunk_bytes: int = CHUNK_BYTES, jobs: int = 1) -> DiffReport:
-    """Compare trace ``path_b`` against ``path_a``.
-
-    Parameters
-    ----------
-    tol : float
-        Default absolute tolerance (column units; rad for heading columns).
-    rules : list of (pattern, tolerance)
-        Per-column tolerances; a pattern is a column name or a shell pattern;
-        the last rule matching a column wins.
-    columns : list of str or None
-        Compare only these columns (names or patterns); ``t`` is always read
-        for times and the step check.
-    chunk_bytes : int
-        Read size per file; memory is a few times this (per process).
-    jobs : int
-        Worker processes for large files (above ``PARALLEL_BYTES`` together):
-        each compares its own range of rows.  The report is the same for any
-        number of jobs.
-    """
-    ta = TraceFile(path_a, chunk_bytes)
-    try:
-        tb = TraceFile(path_b, chunk_bytes)
-    except BaseException:
-        ta.close()
-        raise
-    try:
-        plan = _plan(ta, tb, tol, rules, columns)
-    finally:
-        ta.close()
-        tb.close()
-    cuts = _cuts(plan, jobs, chunk_bytes) if jobs > 1 else None
-    if cuts is None:
-        states = [_segment(plan, chunk_bytes, None)]
-    else:
-        states = _parallel(plan, chunk_bytes, cuts)
-    return _report(plan, states)
-
-
-PARALLEL_BYTES = 64 << 20
+def _final(side):
+    page, cols = side.last_page, side.rd.columns
+    if page is None or not all(p in cols for p in POSE):
+        return None
+    v = page.values(rows=[len(page) - 1], cols=[cols.index(p) for p in POSE])[0]
+    return tuple(float(x) for x in v) if np.isfinite(v).all() else None
 
 
 @dataclass
 class _Plan:
-    """What to compare (picklable, sent to segment workers)."""
+    """What to compare."""
 
     path_a: str
     path_b: str
@@ -504,13 +525,14 @@ class _Plan:
     columns_b: tuple
     names: list
     tols: list
-    tol_t: float
     only_a: tuple
     only_b: tuple
+    step_a: float | None = None
+    step_b: float | None = None
 
 
-def _plan(ta, tb, tol, rules, columns) -> _Plan:
-    every = list(ta.columns) + [n for n in tb.columns if n not in ta.columns]
+def _plan(ra, rb, tol, rules, columns) -> _Plan:
+    every = list(ra.columns) + [n for n in rb.columns if n not in ra.columns]
     if columns:
         chosen = []
         for pat in columns:
@@ -532,197 +554,46 @@ def _plan(ta, tb, tol, rules, columns) -> _Plan:
                 v = t
         return v
 
-    names = [n for n in chosen if n in ta.columns and n in tb.columns]
-    return _Plan(ta.path, tb.path, ta.columns, tb.columns, names, [tol_of(n) for n in names], tol_of("t"),
-                 tuple(n for n in chosen if n not in tb.columns), tuple(n for n in chosen if n not in ta.columns))
+    names = [n for n in chosen if n in ra.columns and n in rb.columns]
+    return _Plan(ra.path, rb.path, ra.columns, rb.columns, names, [tol_of(n) for n in names],
+                 tuple(n for n in chosen if n not in rb.columns), tuple(n for n in chosen if n not in ra.columns))
 
 
-def _segment(plan: _Plan, chunk_bytes, cut) -> dict:
-    """Compare one range of rows; ``cut`` = (row0, start_a, end_a, start_b, end_b) or None for all."""
-    if cut is None:
-        row, sa, ea, sb, eb = 0, None, None, None, None
-    else:
-        row, sa, ea, sb, eb = cut
-    ta = TraceFile(plan.path_a, chunk_bytes, sa, ea, row + 2)
-    try:
-        tb = TraceFile(plan.path_b, chunk_bytes, sb, eb, row + 2)
-    except BaseException:
-        ta.close()
-        raise
-    try:
-        cmp_ = _Compare(ta, tb, plan.names, plan.tols, plan.tol_t)
-        ga, gb = ta.blocks(cells=True), tb.blocks(cells=True)
-        la = lb = ()
-        a0 = b0 = wa = wb = 0                      # file line of la[0], lb[0]; widest cells
-        ca = cb = None                             # the blocks' Cells, la[0] is row oa of ca
-        oa = ob = 0
-        while True:
-            if not la:
-                nxt = next(ga, None)
-                if nxt is None:
-                    break
-                a0, la, wa, ca = nxt
-                oa = 0
-            if not lb:
-                nxt = next(gb, None)
-                if nxt is None:
-                    break
-                b0, lb, wb, cb = nxt
-                ob = 0
-            m = min(len(la), len(lb))
-            if m == len(la) == len(lb):
-                cmp_.pair(la, lb, row, a0, b0, max(wa, wb), (ca, oa), (cb, ob))
-                la = lb = ()
-            else:
-                cmp_.pair(la[:m], lb[:m], row, a0, b0, max(wa, wb), (ca, oa), (cb, ob))
-                la, lb = la[m:], lb[m:]
-                a0, b0, oa, ob = a0 + m, b0 + m, oa + m, ob + m
-            row += m
-        for _ in ga:                               # read (and check) what is left
-            pass
-        for _ in gb:
-            pass
-        return cmp_.state()
-    finally:
-        ta.close()
-        tb.close()
-
-
-def _segment_job(plan, chunk_bytes, cut):
-    """Worker side of :func:`_segment`: errors come back as values (InputError does not pickle)."""
-    try:
-        return ("ok", _segment(plan, chunk_bytes, cut))
-    except InputError as exc:
-        return ("error", exc.source, exc.line, exc.message)
-
-
-def _nth_line_end(fh, n, pos=0, chunk=CHUNK_BYTES):
-    """Byte offset just after the n-th line end (1-based) counting from ``pos``; None if fewer."""
-    fh.seek(pos)
-    seen = 0
-    while True:
-        data = fh.read(chunk)
-        if not data:
-            return None
-        c = data.count(b"\n")
-        if seen + c >= n:
-            i = np.flatnonzero(np.frombuffer(data, np.uint8) == 10)[n - seen - 1]
-            return pos + int(i) + 1
-        seen += c
-        pos += len(data)
-
-
-def _cuts(plan, jobs, chunk_bytes):
-    """Row ranges of about equal size for ``jobs`` workers, or None (small files, or a file ends early)."""
-    size_a, size_b = os.path.getsize(plan.path_a), os.path.getsize(plan.path_b)
-    if size_a + size_b < PARALLEL_BYTES:
-        return None
-    with open(plan.path_a, "rb") as fa, open(plan.path_b, "rb") as fb:
-        head_a = _nth_line_end(fa, 1)
-        head_b = _nth_line_end(fb, 1)
-        if head_a is None or head_b is None:
-            return None
-        bounds = [(0, head_a, head_b)]
-        for j in range(1, jobs):
-            target = size_a * j // jobs
-            fa.seek(0)
-            newlines, pos = 0, 0
-            while pos < target:                    # line ends before the target byte
-                data = fa.read(min(chunk_bytes, target - pos))
-                if not data:
-                    break
-                newlines += data.count(b"\n")
-                pos += len(data)
-            start_a = _nth_line_end(fa, 1, target)
-            if start_a is None:
+def head_step(path) -> float | None:
+    """``t1 - t0`` of a trace's first two rows (s), or None (fewer rows, or not a positive step)."""
+    with TraceReader(path, 1 << 16) as rd:
+        it = rd.columns.index("t")
+        got = []
+        while len(got) < 2:
+            page = rd.take(2 - len(got))
+            if page is None:
                 return None
-            row = newlines                         # header + newlines - 1 complete data rows, next is row `newlines`
-            start_b = _nth_line_end(fb, row + 1)
-            if start_b is None or row <= bounds[-1][0]:
-                return None
-            bounds.append((row, start_a, start_b))
-    cuts = []
-    for j, (row, sa, sb) in enumerate(bounds):
-        nxt = bounds[j + 1] if j + 1 < len(bounds) else (None, None, None)
-        cuts.append((row, sa, nxt[1], sb, nxt[2]))
-    return cuts
+            got += list(page.values(cols=[it])[:, 0])
+    step = got[1] - got[0]
+    return float(step) if math.isfinite(step) and step > 0 else None
 
 
-def _parallel(plan, chunk_bytes, cuts) -> list:
-    from concurrent.futures import ProcessPoolExecutor
+def compare(path_a, path_b, tol: float = DEFAULT_TOLERANCE, rules=(), columns=None,
+            chunk_bytes: int = CHUNK_BYTES) -> DiffReport:
+    """Compare trace ``path_b`` against ``path_a`` (CSV or Parquet, see module docstring).
 
-    from sim.procs import pool_context
-
-    with ProcessPoolExecutor(max_workers=len(cuts), mp_context=pool_context(("numpy", "sim.traces.diff"))) as ex:
-        outs = list(ex.map(_segment_job, [plan] * len(cuts), [chunk_bytes] * len(cuts), cuts))
-    for kind, *rest in outs:                       # the earliest segment's error, like a serial read
-        if kind == "error":
-            raise InputError(*rest)
-    return [o[1] for o in outs]
-
-
-def _report(plan: _Plan, states) -> DiffReport:
-    """Merge segment states (in row order) into the report."""
-    rep = DiffReport(plan.path_a, plan.path_b, plan.columns_a, plan.columns_b,
-                     only_a=plan.only_a, only_b=plan.only_b)
-    k = len(plan.names)
-    max_dev, max_row = np.zeros(k), np.full(k, -1)
-    max_t, max_a, max_b = np.full(k, np.nan), np.full(k, np.nan), np.full(k, np.nan)
-    blanks = np.zeros(k, int)
-    head_a, head_b, last_a, last_b = [], [], None, None
-    for st in states:
-        rep.rows_a += st["rows_a"]
-        rep.rows_b += st["rows_b"]
-        head_a += st["head_a"]
-        head_b += st["head_b"]
-        last_a = st["last_a"] if st["last_a"] is not None else last_a
-        last_b = st["last_b"] if st["last_b"] is not None else last_b
-        rep.first = rep.first or st["first"]
-        rep.step_mismatch = rep.step_mismatch or st["step"]
-        rep.equal &= st["equal"]
-        blanks += st["blanks"]
-        better = st["max_dev"] > max_dev
-        for arr, new in ((max_dev, "max_dev"), (max_row, "max_row"), (max_t, "max_t"),
-                         (max_a, "max_a"), (max_b, "max_b")):
-            arr[better] = st[new][better]
-    it_a, it_b = plan.columns_a.index("t"), plan.columns_b.index("t")
-    rep.step_a = _step(head_a[:2], it_a, plan.path_a, plan.columns_a)
-    rep.step_b = _step(head_b[:2], it_b, plan.path_b, plan.columns_b)
-    rep.final_a = _final(last_a, plan.columns_a, plan.path_a, rep.rows_a + 1)
-    rep.final_b = _final(last_b, plan.columns_b, plan.path_b, rep.rows_b + 1)
-    for j, n in enumerate(plan.names):
-        cd = ColumnDiff(n, float(plan.tols[j]), is_heading(n))
-        if max_row[j] >= 0:
-            cd.max_deviation = float(max_dev[j])
-            cd.row = int(max_row[j])
-            cd.t, cd.a, cd.b = float(max_t[j]), float(max_a[j]), float(max_b[j])
-        cd.blanks = int(blanks[j])
-        rep.compared.append(cd)
-    return rep
-
-
-def _values(line: bytes, path, ln, columns) -> np.ndarray:
-    """All cells of data line ``ln`` of ``path`` as floats, nan for blank; shape (ncols,)."""
-    out = []
-    for name, c in zip(columns, line.split(b",")):
-        try:
-            out.append(float(c) if c else np.nan)
-        except ValueError:                      # (a row equal in both traces was never read as numbers)
-            raise InputError(path, ln, f"column '{name}': expected a number or a blank cell, "
-                                       f"got '{c.decode('ascii', 'replace')}'") from None
-    return np.array(out)
-
-
-def _step(head, it, path, columns):
-    if len(head) < 2:
-        return None
-    t0, t1 = (_values(line, path, ln, columns)[it] for ln, line in enumerate(head, start=2))
-    return float(t1 - t0) if math.isfinite(t1 - t0) else None
-
-
-def _final(last, columns, path, ln):
-    if last is None or not all(p in columns for p in POSE):
-        return None
-    v = _values(last, path, ln, columns)
-    pose = tuple(float(v[columns.index(p)]) for p in POSE)
-    return pose if all(math.isfinite(p) for p in pose) else None
+    Parameters
+    ----------
+    tol : float
+        Default absolute tolerance (column units; rad for heading columns).
+    rules : list of (pattern, tolerance)
+        Per-column tolerances; a pattern is a column name or a shell pattern;
+        the last rule matching a column wins.
+    columns : list of str or None
+        Compare only these columns (names or patterns); ``t`` is always read
+        to pair the rows.
+    chunk_bytes : int
+        CSV text read per page and file; memory is a few times this.
+    """
+    with TraceReader(path_a, chunk_bytes) as ra, TraceReader(path_b, chunk_bytes) as rb:
+        plan = _plan(ra, rb, tol, rules, columns)
+        plan.step_a, plan.step_b = head_step(path_a), head_step(path_b)
+        steps = [s for s in (plan.step_a, plan.step_b) if s is not None]
+        cmp_ = _Compare(ra, rb, plan, MATCH * min(steps) if steps else 0.0)
+        cmp_.run()
+        return cmp_.report()

@@ -1,7 +1,8 @@
-"""Trace metadata: the sidecar ``PATH.meta.json`` written beside every CSV trace.
+"""Trace metadata: the sidecar ``PATH.meta.json`` written beside every trace.
 
 The CSV stays plain RFC 4180 (ordinary CSV readers load it); what produced it
-lives beside it::
+lives beside it (a Parquet trace also holds the same JSON text in its
+key-value metadata under the key ``trundle``)::
 
     {"trundle": "0.1.0", "scenario": "ward-cart-arc.yaml",
      "scenario_hash": "...", "robot": "ward-cart", "robot_hash": "...",
@@ -18,8 +19,10 @@ import json
 import os
 
 from sim.errors import InputError
+from sim.files.atomic import write_text
 
 SUFFIX = ".meta.json"
+PARQUET_KEY = "trundle"
 
 
 def meta_path(csv_path) -> str:
@@ -27,11 +30,11 @@ def meta_path(csv_path) -> str:
     return os.fspath(csv_path) + SUFFIX
 
 
-def write_meta(csv_path, scen, columns, every: int, rows: int, complete: bool = True) -> str:
-    """Write the sidecar of trace ``csv_path`` (through ``.part``); return its path."""
+def trace_meta(scen, columns, every: int) -> dict:
+    """What produced a trace of ``scen`` (the sidecar without ``rows`` and ``complete``)."""
     from sim import __version__
 
-    data = {
+    return {
         "trundle": __version__,
         "scenario": os.path.basename(scen.source),
         "scenario_hash": scen.scenario_hash,
@@ -39,26 +42,43 @@ def write_meta(csv_path, scen, columns, every: int, rows: int, complete: bool = 
         "robot_hash": scen.robot_hash,
         "step": scen.step,
         "every": int(every),
-        "rows": int(rows),
-        "complete": bool(complete),
         "columns": list(columns),
     }
-    path = meta_path(csv_path)
-    part = path + ".part"
-    with open(part, "w", encoding="utf-8", newline="\n") as fh:
-        fh.write(json.dumps(data, indent=1) + "\n")
-    os.replace(part, path)
+
+
+def finished(meta: dict, rows: int, complete: bool) -> dict:
+    """``meta`` with ``rows`` and ``complete`` (in the sidecar's key order)."""
+    out = {k: v for k, v in meta.items() if k not in ("rows", "complete", "columns")}
+    out["rows"] = int(rows)
+    out["complete"] = bool(complete)
+    out["columns"] = list(meta.get("columns", ()))
+    return out
+
+
+def meta_text(data: dict) -> str:
+    """The sidecar's JSON text (also the Parquet key-value entry)."""
+    return json.dumps(data, indent=1) + "\n"
+
+
+def write_sidecar(trace_path, data: dict) -> str:
+    """Write ``data`` as the sidecar of ``trace_path`` (through the write-then-rename helper)."""
+    path = meta_path(trace_path)
+    write_text(path, meta_text(data), "the trace metadata")
     return path
 
 
 def read_meta(csv_path) -> dict | None:
-    """The sidecar of ``csv_path`` as a dict, or None when there is none."""
+    """The sidecar of trace ``csv_path`` as a dict; for a Parquet trace without
+    one, the copy in its key-value metadata; None when there is neither."""
     path = meta_path(csv_path)
     try:
         with open(path, encoding="utf-8") as fh:
             text = fh.read()
     except FileNotFoundError:
-        return None
+        text = _parquet_meta(csv_path)
+        if text is None:
+            return None
+        path = os.fspath(csv_path)
     except OSError as exc:
         raise InputError(path, None, f"cannot read file: {exc.strerror}") from None
     try:
@@ -71,6 +91,21 @@ def read_meta(csv_path) -> dict | None:
     if not isinstance(every, int) or isinstance(every, bool) or every < 1:
         raise InputError(path, None, f"'every' must be a whole number >= 1, got {every!r}")
     return data
+
+
+def _parquet_meta(trace_path) -> str | None:
+    """The ``trundle`` key-value entry of a Parquet trace, or None."""
+    try:
+        with open(trace_path, "rb") as fh:
+            if fh.read(4) != b"PAR1":
+                return None
+    except OSError:
+        return None
+    import polars as pl
+    try:
+        return pl.read_parquet_metadata(os.fspath(trace_path)).get(PARQUET_KEY)
+    except Exception:                                   # noqa: BLE001 - an unreadable file has none
+        return None
 
 
 def provenance_notes(meta: dict | None, scen, every: int) -> list:

@@ -1,7 +1,7 @@
-"""Plots of traces: ``trundle plot TRACE.csv -o OUT.png [--compare OTHER.csv]``.
+"""Plots of traces: ``trundle plot TRACE -o OUT.png [--compare OTHER]``.
 
 The one module that imports matplotlib (lazily, Agg backend, no pyplot
-state).  :func:`read_trace` reads a trace CSV robustly (blank cells are
+state).  :func:`read_trace` reads a trace (CSV or Parquet) robustly (blank cells are
 NaN; anything else that is not a number is an :class:`~sim.errors.InputError`
 with file and line) and keeps memory flat: long traces are thinned to at most
 ``max_rows`` evenly spaced rows while the slip peak is taken from every row.
@@ -72,42 +72,38 @@ class Trace:
 
 
 def read_trace(path, max_rows: int = 20000, on_block=None) -> Trace:
-    """Read a trace CSV (see README "Traces").  Raises :class:`InputError`.
+    """Read a trace, CSV or Parquet (see README "Traces").  Raises :class:`InputError`.
 
-    Lines are read and checked by :class:`sim.tracecsv.TraceFile` (the reader
-    ``trundle diff`` uses), a block at a time.  ``on_block(header, block)``,
-    if given, sees every block of rows (array (m, columns)) before thinning.
+    Pages of rows come from :class:`sim.traces.read.TraceReader` (the reader
+    ``trundle diff`` uses), one at a time.  ``on_block(header, block, page)``,
+    if given, sees every block of rows (array (m, columns)) before thinning;
+    ``page.error(i, message)`` locates a problem in row i of it.
     """
-    from sim.traces.csvread import CHUNK_BYTES, TraceFile, floats
+    from sim.traces.read import TraceReader
 
     src = os.fspath(path)
-    tf = TraceFile(src, CHUNK_BYTES)
-    try:
-        header = list(tf.columns)
+    with TraceReader(src) as rd:
+        header = list(rd.columns)
         missing = [c for c in REQUIRED if c not in header]
         if missing:
-            raise InputError(src, 1, f"not a trace: missing column(s) {', '.join(missing)}")
-        nc = len(header)
+            raise InputError(src, 1 if rd.kind == "csv" else None,
+                             f"not a trace: missing column(s) {', '.join(missing)}")
         ti = header.index("t")
         si = header.index("slip") if "slip" in header else None
         kept, stride, last = [], 1, None
         peak, peak_t = -math.inf, math.nan
         i = 0
-        for first, lines, _ in tf.blocks():
-            if not lines:
-                continue
-            cells = b",".join(lines).split(b",")
-            where = lambda j: (src, first + j // nc, header[j % nc])
-            block = floats(cells, where).reshape(len(lines), nc)
+        for page in rd.pages():
+            block = page.values()
             bad = np.argwhere(np.isinf(block))
             if len(bad):
                 r, c = bad[0]
-                raise InputError(src, first + int(r), f"column '{header[c]}': expected a finite number")
+                raise page.error(int(r), f"column '{header[c]}': expected a finite number")
             blank = np.flatnonzero(np.isnan(block[:, ti]))
             if len(blank):
-                raise InputError(src, first + int(blank[0]), "column 't' is blank")
+                raise page.error(int(blank[0]), "column 't' is blank")
             if on_block is not None:
-                on_block(header, block, first)
+                on_block(header, block, page)
             if si is not None and np.any(np.isfinite(block[:, si])):
                 j = int(np.nanargmax(block[:, si]))
                 if block[j, si] > peak:
@@ -121,14 +117,12 @@ def read_trace(path, max_rows: int = 20000, on_block=None) -> Trace:
                 while len(allk) > 2 * max_rows:     # keep rows k = 0, s, 2s, ... with s doubled
                     allk, stride = allk[::2], stride * 2
                 kept = [allk]
-    finally:
-        tf.close()
     if i == 0:
-        raise InputError(src, 2, "the trace has no rows")
+        raise InputError(src, 2 if rd.kind == "csv" else None, "the trace has no rows")
     arr = np.vstack(kept)
     if (i - 1) % stride:
         arr = np.vstack([arr, last])                # the last row is always kept
-    data = {c: arr[:, j] for j, c in enumerate(header)}
+    data = {c: np.ascontiguousarray(arr[:, j]) for j, c in enumerate(header)}
     wheels = []
     for c in header:
         name, dot, part = c.rpartition(".")
@@ -554,12 +548,11 @@ def plot_traces(path, out, compare=None, max_rows: int = 20000, floor=None, outl
         from sim.runs.clearance import ClearanceMeter
         meter = ClearanceMeter(outline, floor, swept=True)
 
-    def measure(header, block, first):
+    def measure(header, block, page):
         idx = [header.index(c) for c in REQUIRED]
         bad = np.flatnonzero(~np.all(np.isfinite(block[:, idx]), axis=1))
         if len(bad):
-            raise InputError(os.fspath(path), first + int(bad[0]), "a blank t, x, y or theta: "
-                             "the clearance needs a pose on every row")
+            raise page.error(int(bad[0]), "a blank t, x, y or theta: the clearance needs a pose on every row")
         meter.add(block[:, idx[0]], block[:, idx[1:]])
     traces = [read_trace(path, max_rows, measure if meter is not None else None)]
     if compare:

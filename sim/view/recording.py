@@ -4,8 +4,9 @@
 (for ``PATH = out/drive.csv``):
 
 * ``out/drive.csv``: the trace, the same columns as ``trundle run --csv``
-  (:mod:`sim.trace`), one row per step, flushed to ``out/drive.csv.part``
-  as it goes and renamed into place when the drive ends;
+  (:mod:`sim.traces.writer`; Parquet when PATH ends in ``.parquet``), one row
+  per step, flushed to ``out/drive.csv.part`` as it goes and renamed into
+  place when the drive ends;
 * ``out/drive.commands.csv``: the command log ``t,vx,vy,omega`` (body
   twist, m/s and rad/s), one row whenever the command changed;
 * ``out/drive.scenario.yaml``: a scenario that replays the command log on the
@@ -21,16 +22,18 @@ from __future__ import annotations
 import json
 import os
 
-import numpy as np
-
 from sim.errors import InputError
-from sim.traces.writer import TraceWriter, columns, format_rows, row_values
+from sim.files.atomic import write_text
+from sim.traces.writer import TraceWriter, columns, row_values
 
 
 def companion_paths(path) -> tuple:
     """(command log, scenario) paths that go with trace ``path``."""
     path = os.fspath(path)
-    stem = path[:-4] if path.lower().endswith(".csv") else path
+    stem = path
+    for suffix in (".csv", ".parquet"):
+        if path.lower().endswith(suffix):
+            stem = path[:-len(suffix)]
     return stem + ".commands.csv", stem + ".scenario.yaml"
 
 
@@ -55,8 +58,11 @@ class Recorder:
         self.policy_changes = []
         self.header = columns(robot)
         self.trace = TraceWriter(self.path, self.header)
-        self._log = open(self.log_path + ".part", "w", encoding="ascii", newline="")
-        self._log.write("t,vx,vy,omega\r\n")
+        try:
+            self._log = TraceWriter(self.log_path, ["t", "vx", "vy", "omega"])
+        except BaseException:
+            self.trace.abort()
+            raise
         self._last_cmd = None
         self.rows = 0
         self.last_t = 0.0
@@ -67,7 +73,7 @@ class Recorder:
             self.policy_changes.append((row.t, align))
         cmd = (0.0, 0.0, 0.0) if row.cmd_twist is None else tuple(float(v) for v in row.cmd_twist)
         if cmd != self._last_cmd:
-            self._log.write(format_rows(np.array([[row.t, *cmd]])))
+            self._log.write([row.t, *cmd])
             self._last_cmd = cmd
         self.trace.write(row_values(row))
         self.rows += 1
@@ -79,31 +85,26 @@ class Recorder:
         self._log.flush()
 
     def close(self) -> list:
-        """Finish all files; returns the paths written."""
-        self.trace.close()
+        """Finish all files (the trace last, then its sidecar); returns the paths written."""
         self._log.close()
-        os.replace(self.log_path + ".part", self.log_path)
-        part = self.scen_path + ".part"
-        with open(part, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(self.scenario_text())
-        os.replace(part, self.scen_path)
+        write_text(self.scen_path, self.scenario_text(), "the replay scenario")
         out = [self.path, self.log_path, self.scen_path]
+        meta = None
         try:
             from sim.files.scenario import load_scenario
-            from sim.traces.meta import write_meta
-            out.append(write_meta(self.path, load_scenario(self.scen_path), self.header, 1, self.rows, True))
+            from sim.traces.meta import meta_path, trace_meta
+            meta = trace_meta(load_scenario(self.scen_path), self.header, 1)
         except ImportError:
             pass
+        self.trace.close(meta=meta)
+        if meta is not None:
+            out.append(meta_path(self.path))
         return out
 
     def abort(self) -> None:
         """Remove the partial files (the drive failed)."""
         self.trace.abort()
-        if not self._log.closed:
-            self._log.close()
-        for p in (self.log_path + ".part",):
-            if os.path.exists(p):
-                os.remove(p)
+        self._log.abort()
 
     def scenario_text(self) -> str:
         """The replay scenario (YAML)."""

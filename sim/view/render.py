@@ -34,7 +34,7 @@ from collections import deque
 
 import numpy as np
 
-from sim.traces.floatfmt import fixed
+from sim.files.text import fixed
 
 DEFAULT_SIZE = (1120, 720)
 PANEL_W = 320
