@@ -35,7 +35,6 @@ import math
 import os
 from dataclasses import dataclass
 
-from sim.errors import InputError
 from sim.files import fields as F
 from sim.files.robotfile import robot_from_data
 from sim.files.yamlread import load_file

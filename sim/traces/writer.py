@@ -20,7 +20,6 @@ import threading
 
 import numpy as np
 
-from sim.engine.record import columns  # noqa: F401  (the header, re-exported for writers)
 from sim.errors import InputError
 from sim.files.atomic import AtomicFile, signals_held
 from sim.traces.meta import PARQUET_KEY, finished, meta_text, write_sidecar

@@ -24,7 +24,8 @@ import os
 
 from sim.errors import InputError
 from sim.files.atomic import write_text
-from sim.traces.writer import TraceWriter, columns, row_values
+from sim.engine.record import columns
+from sim.traces.writer import TraceWriter, row_values
 
 
 def companion_paths(path) -> tuple:
