@@ -143,6 +143,8 @@ class TraceWriter:
                 try:
                     self._drain()
                     self._worker.finish()
+                    if self.parquet:
+                        self._check_parquet_end()
                     self._file.commit()
                 except BaseException:
                     self._discard()
@@ -152,6 +154,22 @@ class TraceWriter:
                     write_sidecar(self.path, finished(self.meta, self.rows, self._complete))
         finally:
             self._sigint.restore()
+
+    def _check_parquet_end(self) -> None:
+        """A Parquet file ends with its footer and ``PAR1``; polars' writer, cut off by an
+        interrupt that reached it despite :class:`_OwnInterrupt`, can stop without one.  Such a
+        file is never renamed into place."""
+        fh = self._file.fh
+        fh.flush()
+        with open(self._file.part, "rb") as part:
+            part.seek(0, os.SEEK_END)
+            size = part.tell()
+            part.seek(max(size - 4, 0))
+            ok = size >= 8 and part.read(4) == b"PAR1"
+        if not ok:
+            raise InputError(self.path, None, "the Parquet writer was cut off by the interrupt before it could "
+                                              "finish the file; no trace kept (a CSV trace keeps the rows of an "
+                                              "interrupted run)")
 
     def abort(self) -> None:
         """Stop and remove the ``.part`` file (the destination is untouched)."""
