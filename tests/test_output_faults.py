@@ -173,7 +173,8 @@ def test_file_size_limit_mid_run_leaves_nothing(tmp_path):
     out = tmp_path / "out.csv"
     p = _module(["run", SHORT, "--csv", out], subprocess.PIPE, preexec_fn=small_files)
     assert p.returncode == 2 and "Traceback" not in p.stderr, p.stderr
-    assert p.stderr.startswith(f"{out}: cannot write the trace: File too large"), p.stderr
+    assert p.stderr.startswith(f"{out}: cannot write the trace: ") and "File too large" in p.stderr, p.stderr
+    assert len(p.stderr.strip().splitlines()) == 1
     assert sorted(q.name for q in tmp_path.iterdir()) == []
 
 
@@ -202,8 +203,8 @@ def test_full_disk_leaves_nothing(args, what, tmp_path, cli):
     p = subprocess.run(["unshare", "-m", "sh", "-c", script], capture_output=True, text=True, timeout=120)
     assert p.returncode == 2, p.stderr
     lines = p.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith(f"{d}/") and f"{what}: No space left on device" in lines[0], \
-        p.stderr  # and `ls -A` printed nothing: no file, no .part
+    assert len(lines) == 1 and lines[0].startswith(f"{d}/") and f"{what}: " in lines[0], p.stderr
+    assert "No space left on device" in lines[0], p.stderr  # and `ls -A` printed nothing: no file, no .part
 
 
 # -- a batch always finishes -------------------------------------------------------------
