@@ -43,7 +43,7 @@ def open_regular(path, what: str = "file"):
     try:
         fd = os.open(source, flags)
     except FileNotFoundError:
-        raise InputError(source, None, f"{what} not found") from None
+        raise InputError(source, None, "file not found") from None
     except IsADirectoryError:
         raise InputError(source, None, f"is a folder, expected a {what}") from None
     except OSError as exc:
