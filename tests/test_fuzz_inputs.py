@@ -163,21 +163,26 @@ def test_fuzz_robot_files(seed, ops, tmp_path):
 
 
 @settings(FUZZ, max_examples=90 * SCALE)
-@given(seed=st.sampled_from(SCENARIO_SEEDS), ops=OPS, robot_ops=st.one_of(st.just([]), OPS))
-def test_fuzz_scenario_files(seed, ops, robot_ops, tmp_path):
-    """Mutated scenarios (and sometimes their robot file), run with a CSV trace."""
+@given(seed=st.sampled_from(SCENARIO_SEEDS), ops=OPS, other_ops=st.one_of(st.just([]), OPS), which=st.integers(0, 7))
+def test_fuzz_scenario_files(seed, ops, other_ops, which, tmp_path):
+    """Mutated scenarios (and sometimes a file they name: robot, route, floor, command log),
+    run with a CSV trace."""
     d = _fresh(tmp_path)
-    shutil.copytree(SCENARIOS / "robots", d / "robots")
-    shutil.copytree(SCENARIOS / "logs", d / "logs")
+    for folder in ("robots", "logs", "routes", "floors"):
+        if (SCENARIOS / folder).is_dir():
+            shutil.copytree(SCENARIOS / folder, d / folder)
     text = seed.read_bytes()
-    robot = re.search(rb"^robot: (\S+)", text, re.M)
-    if robot_ops and robot:
-        target = d / robot.group(1).decode()
-        target.write_bytes(_mutate(target.read_bytes(), robot_ops))
+    named = re.findall(rb"^(?:robot|route|floor|commands): (\S+)", text, re.M)
+    data = b""
+    if other_ops and named:
+        target = d / named[which % len(named)].decode()
+        if target.is_file():
+            target.write_bytes(_mutate(target.read_bytes(), other_ops))
+            data = target.read_bytes()
     p = d / "s.yaml"
     p.write_bytes(_mutate(text, ops))
     out = d / "out.csv"
-    data = p.read_bytes() + (target.read_bytes() if robot_ops and robot else b"")
+    data = p.read_bytes() + data
     code = _check("scenario", ["run", p, "--csv", out], d, [out, str(out) + ".meta.json"], data)
     if code != 2:
         assert out.exists() and os.path.exists(str(out) + ".meta.json")
