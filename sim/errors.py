@@ -73,3 +73,34 @@ def require(module: str, purpose: str) -> None:
     if importlib.util.find_spec(module) is None:
         raise InputError(purpose, None, f"needs {module}, which is not installed: "
                          "pip install 'trundle[view]' (or pip install -e '.[view]' in a checkout)")
+
+
+def quote(value, limit: int = 40) -> str:
+    """``'value'`` for a message: at most ``limit`` characters of it, control characters escaped.
+
+    Messages quote the offending value, never whole lines of a file: a long
+    value is cut (``'abc...' (5000 characters)``), so pointing Trundle at some
+    other file does not copy that file into a terminal or a CI report.
+    """
+    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 200:
+        digits = int((value.bit_length() - 1) * 0.30102999566398120) + 1
+        digits += abs(value) >= 10 ** digits
+        return f"a whole number of {digits} digits"
+    text = value if isinstance(value, str) else str(value)
+    n = len(text)
+    if n <= limit and text.isprintable():
+        return f"'{text}'"
+    cut = text[:limit]
+    shown = "".join(c if c.isprintable() else repr(c)[1:-1] for c in cut)
+    if n > limit:
+        return f"'{shown}...' ({n} characters)"
+    return f"'{shown}'"
+
+
+def clip(text: str, limit: int = 120) -> str:
+    """``text`` cut to ``limit`` characters (with ``...``), control characters escaped."""
+    text = str(text)
+    if len(text) <= limit and text.isprintable():
+        return text
+    text = "".join(c if c.isprintable() else repr(c)[1:-1] for c in text[:limit + 1])
+    return text if len(text) <= limit else text[:limit] + "..."

@@ -1,8 +1,11 @@
 """Worker-process helpers shared by batch runs and parallel trace comparison."""
 from __future__ import annotations
 
+import contextlib
 import multiprocessing
 import os
+import signal
+import sys
 
 
 def cores() -> int:
@@ -25,3 +28,36 @@ def pool_context(preload=()):
         ctx.set_forkserver_preload(list(preload))
         return ctx
     return multiprocessing.get_context("spawn")
+
+
+@contextlib.contextmanager
+def interrupts_kept(signum: int = signal.SIGINT):
+    """While the block runs, an interrupt that Python would drop is delivered again.
+
+    A ``KeyboardInterrupt`` (or a batch's time limit) raised while compiled code is
+    calling back into Python (the JIT compiler's cache does) cannot travel up: Python
+    prints "Exception ignored ... Traceback" and goes on as if nothing happened.  Here
+    such an exception is not printed; a ``KeyboardInterrupt`` is delivered again as
+    signal ``signum`` (whose Python handler raises it) a moment later, from a timer thread, and
+    a time limit rings again by itself.  Other exceptions are reported as before.
+    """
+    import _thread
+    import threading
+
+    previous = sys.unraisablehook
+
+    def hook(args):
+        exc = args.exc_value
+        if isinstance(exc, BaseException) and not isinstance(exc, Exception):
+            if isinstance(exc, KeyboardInterrupt):  # a moment later, when the callback has returned
+                later = threading.Timer(0.02, _thread.interrupt_main, (signum,))
+                later.daemon = True
+                later.start()
+            return
+        previous(args)
+
+    sys.unraisablehook = hook
+    try:
+        yield
+    finally:
+        sys.unraisablehook = previous

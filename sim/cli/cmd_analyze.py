@@ -52,16 +52,8 @@ def run(args) -> int:
         from sim.files.cexport import c_header
         text = c_header(robot, matrices(robot, heading), heading, os.path.basename(args.robot))
         if args.output:
-            from sim.errors import InputError
-            tmp = args.output + ".part"
-            try:
-                with open(tmp, "w", encoding="ascii") as fh:
-                    fh.write(text)
-                os.replace(tmp, args.output)
-            except OSError as exc:
-                if os.path.exists(tmp):
-                    os.remove(tmp)
-                raise InputError(args.output, None, f"cannot write the header: {exc.strerror}") from None
+            from sim.files.atomic import write_text
+            write_text(args.output, text, "the C header")
             print(f"wrote {args.output}")
         else:
             sys.stdout.write(text)

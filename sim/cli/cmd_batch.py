@@ -1,6 +1,7 @@
 """``trundle batch PATHS...``: run many scenarios in parallel, with checks and baselines."""
 from __future__ import annotations
 
+import math
 import os
 import sys
 
@@ -16,6 +17,9 @@ def add_arguments(p):
     p.add_argument("--jobs", type=int, default=None, metavar="N",
                    help="worker processes (default: all cores; 1 runs in this process)")
     p.add_argument("--junit", metavar="FILE", help="also write the results as JUnit XML")
+    p.add_argument("--timeout", type=float, default=600.0, metavar="S",
+                   help="time limit per scenario in s (default 600; 0: none); a scenario that runs "
+                        "longer is stopped and reported as timed out")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="send the runs to a Dask scheduler (e.g. tcp://10.0.0.5:8786; extra [cluster])")
     from sim.cli.options import add_tolerance_arguments
@@ -66,6 +70,11 @@ def run(args) -> int:
     jobs = cores() if args.jobs is None else args.jobs
     if jobs < 1:
         raise InputError("--jobs", None, f"must be a whole number >= 1, got {jobs}")
+    if not (args.timeout >= 0 and math.isfinite(args.timeout)):
+        raise InputError("--timeout", None, f"must be a number of seconds >= 0 (0: no limit), got {args.timeout:g}")
+    if args.junit:
+        from sim.files.atomic import check_target
+        check_target(args.junit, "the JUnit report")
     prepare_parent(1 if args.scheduler else jobs)
     tol, rules = parse_tolerances(args.tol)
     if args.baselines and not args.update and not os.path.isdir(args.baselines):
@@ -80,7 +89,8 @@ def run(args) -> int:
     else:
         progress = _Progress(units)
         try:
-            results = run_units(units, args.baselines, args.update, jobs, tol, rules, on_done=progress)
+            results = run_units(units, args.baselines, args.update, jobs, tol, rules, on_done=progress,
+                                timeout=args.timeout or None)
         except KeyboardInterrupt:
             progress.end_line()
             raise

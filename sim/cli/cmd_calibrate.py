@@ -46,8 +46,9 @@ def add_arguments(p):
 
 def _positive(name, value, allow_zero=False):
     from sim.errors import InputError
-    if not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero):
-        raise InputError(name, None, f"must be a finite number {'>=' if allow_zero else '>'} 0, got {value:g}")
+    if not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero) or value > 1e6:
+        raise InputError(name, None, f"must be a finite number {'>=' if allow_zero else '>'} 0 and at most "
+                                     f"1e+06, got {value:g}")
 
 
 def _mm(v):

@@ -52,14 +52,19 @@ def run(args) -> int:
             raise InputError("--controller", None, "cannot be combined with --window, --png or --frames")
         from sim.runs.control import load_controller
         controller = load_controller(args.controller)
+    if args.csv:
+        from sim.files.atomic import check_target
+        from sim.traces.meta import meta_path
+        check_target(args.csv, "the trace")
+        check_target(meta_path(args.csv), "the trace's sidecar")
     if args.baseline:
         return _run_baseline(args, scen, controller)
     if args.window or args.png or args.frames:
         from sim.view.playback import at_step, view_run
-        res = view_run(scen, csv=args.csv, every=args.every, window=args.window, png=args.png,
-                       frames=args.frames, fps=args.fps, at=args.at)
+        res = _writing(args, lambda: view_run(scen, csv=args.csv, every=args.every, window=args.window,
+                                              png=args.png, frames=args.frames, fps=args.fps, at=args.at))
     else:
-        res = run_scenario(scen, csv=args.csv, every=args.every, controller=controller)
+        res = _writing(args, lambda: run_scenario(scen, csv=args.csv, every=args.every, controller=controller))
     if args.json:
         from sim.runs.summary import summary_dict
         d = summary_dict(res, scen.warnings)
@@ -87,6 +92,17 @@ def run(args) -> int:
     return 0 if res.passed else 1
 
 
+def _writing(args, work):
+    """``work()``; an OSError while the trace streams (a full disk) is ``CSV: cannot write the trace``."""
+    from sim.errors import InputError
+    try:
+        return work()
+    except OSError as exc:
+        if not args.csv:
+            raise
+        raise InputError(args.csv, None, f"cannot write the trace: {exc.strerror or exc}") from None
+
+
 def _floor_note(scen) -> None:
     """Say how to measure clearance when the scenario has a floor but no check uses it."""
     if scen.floor is not None and not any(c.kind in ("clearance_above", "no_contact") for c in scen.checks):
@@ -101,8 +117,9 @@ def _run_baseline(args, scen, controller=None) -> int:
     from sim.traces.tolerance import parse_tolerances
 
     tol, rules = parse_tolerances(args.tol)
-    res, rep, notes = run_against(scen, args.baseline, tol, rules, csv=args.csv,
-                                  every=None if args.every == 1 else args.every, controller=controller)
+    res, rep, notes = _writing(args, lambda: run_against(scen, args.baseline, tol, rules, csv=args.csv,
+                                                         every=None if args.every == 1 else args.every,
+                                                         controller=controller))
     if args.json:
         from sim.runs.summary import summary_dict
         d = summary_dict(res, scen.warnings)

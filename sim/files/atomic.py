@@ -23,6 +23,13 @@ import threading
 from sim.errors import InputError
 
 
+def check_target(path, what: str = "the file") -> None:
+    """InputError unless ``path`` is absent or a regular file (a device node, FIFO or
+    folder is never replaced).  Writers that do not go through :class:`AtomicFile`
+    (a trace streamed by the engine) call it before they start."""
+    _refuse_unless_regular(os.fspath(path), what)
+
+
 def _refuse_unless_regular(path: str, what: str) -> None:
     try:
         st = os.stat(path)

@@ -24,8 +24,9 @@ import json
 import math
 import os
 
-from sim.errors import InputError
+from sim.errors import InputError, clip
 from sim.files import fields as F
+from sim.files.reading import read_limited
 from sim.files.yamlread import load_file, line_of
 from sim.model.floor import Feature, Floor
 
@@ -41,17 +42,7 @@ def load_floor(path: str | os.PathLike) -> Floor:
     if source.lower().endswith((".yaml", ".yml")):
         data = load_file(source)
         return floor_from_data(data, F.Where(source, "", getattr(data, "line", 1) or 1))
-    try:
-        with open(source, "rb") as fh:
-            raw = fh.read(MAX_BYTES + 1)
-    except FileNotFoundError:
-        raise InputError(source, None, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(source, None, "is a folder, expected a GeoJSON file") from None
-    except OSError as exc:
-        raise InputError(source, None, f"cannot read file: {exc.strerror}") from None
-    if len(raw) > MAX_BYTES:
-        raise InputError(source, None, f"file is larger than {MAX_BYTES // (1024 * 1024)} MiB")
+    raw = read_limited(source, MAX_BYTES, "GeoJSON file")  # a regular file only: a FIFO is never waited on
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -72,6 +63,8 @@ def floor_from_geojson(text: str, source: str = "<inline>") -> Floor:
         raise InputError(source, exc.lineno, f"malformed JSON: {exc.msg} (column {exc.colno})") from None
     except RecursionError:
         raise InputError(source, None, "values nested too deeply; refusing to read it") from None
+    except ValueError as exc:  # an integer of thousands of digits
+        raise InputError(source, None, f"bad number: {clip(exc, 80)}") from None
     want = ("a floor is a GeoJSON FeatureCollection (RFC 7946): "
             '{"type": "FeatureCollection", "features": [...]}')
     if not isinstance(doc, dict):

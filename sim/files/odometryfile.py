@@ -47,7 +47,7 @@ def odometry_from_data(data, where: F.Where, robot: Robot) -> OdometrySpec:
         for name, vals in nm_map.items():
             w = nw.at(nm_map, name)
             if name not in robot.index:
-                raise w.error(f"no wheel named '{name}'{F.suggest(name, robot.index)}")
+                raise w.error(f"no wheel named {F.describe(name)}{F.suggest(name, robot.index)}")
             wheel = robot.wheel(name)
             vals = F.expect_map(vals, w, "a mapping {radius, x, y, heading}")
             F.check_keys(vals, _NOMINAL_KEYS, w)
@@ -70,10 +70,7 @@ def odometry_from_data(data, where: F.Where, robot: Robot) -> OdometrySpec:
         noise[key] = F.number(data[key], at(key), nonnegative=True, unit=unit) if key in data else 0.0
     seed = None
     if "seed" in data:
-        s = data["seed"]
-        if isinstance(s, bool) or not isinstance(s, int) or s < 0:
-            raise at("seed").error(f"expected a whole number >= 0, got {F.describe(s)}")
-        seed = s
+        seed = F.whole(data["seed"], at("seed"), minimum=0, maximum=2 ** 128 - 1)
     spec = OdometrySpec(names, tuple(nominal), noise["count_noise"], noise["slip_noise"], seed, where.line)
     est = DeadReckoner(nominal_robot(robot, spec), [robot.index[n] for n in names])
     rank = est.rank(robot.arrays.heading)

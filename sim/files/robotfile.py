@@ -1,6 +1,7 @@
 """Robot files: read and validate a robot description into a :class:`~sim.model.robot.Robot`.
 
-See README "Robot file" for the format.
+See README "Robot file" for the format.  A robot file is a regular file of at
+most :data:`MAX_BYTES` (a base of a hundred wheels takes about 10 KiB).
 """
 from __future__ import annotations
 
@@ -11,7 +12,8 @@ from dataclasses import replace
 import numpy as np
 
 from sim.files import fields as F
-from sim.files.yamlread import load_file
+from sim.files.reading import read_limited
+from sim.files.yamlread import load_bytes
 from sim.model.robot import WHEEL_TYPES, Robot, Wheel
 
 _COMMON = ("name", "type", "x", "y", "heading", "radius", "driven",
@@ -24,12 +26,20 @@ _EXTRA = {
     "ball": (),
 }
 _ROBOT_KEYS = ("name", "footprint", "wheels")
+MAX_BYTES = 64 * 1024
+MAX_ENCODER = 2 ** 48          # counts per revolution (cumulative counts stay exact in a float)
 
 
 def load_robot(path: str | os.PathLike) -> Robot:
     """Read and validate a robot file.  Raises :class:`InputError`."""
+    return read_robot(path)[0]
+
+
+def read_robot(path: str | os.PathLike) -> tuple:
+    """``(Robot, file bytes)``: the robot file read once, validated, with its content (for hashing)."""
     source = os.fspath(path)
-    return robot_from_data(load_file(source), source)
+    raw = read_limited(source, MAX_BYTES, "robot file")
+    return robot_from_data(load_bytes(raw, source), source), raw
 
 
 MAX_PLAUSIBLE_RADIUS = 1.0    # m: a larger wheel radius is warned about (metres, not millimetres?)
@@ -195,10 +205,8 @@ def _wheel(item, where: F.Where) -> Wheel:
     if "max_spin_accel" in item:
         kw["max_spin_accel"] = F.number(item["max_spin_accel"], at("max_spin_accel"), positive=True, unit="rad/s^2")
     if "encoder" in item:
-        e = item["encoder"]
-        if isinstance(e, bool) or not isinstance(e, int) or e <= 0:
-            raise at("encoder").error(f"encoder counts per revolution must be a whole number > 0, got {F.describe(e)}")
-        kw["encoder"] = e
+        kw["encoder"] = F.whole(item["encoder"], at("encoder"), minimum=1, maximum=MAX_ENCODER,
+                                what="encoder counts per revolution, a whole number")
     if "steer_resolution" in item:
         kw["steer_resolution"] = F.angle(item["steer_resolution"], at("steer_resolution"))
         if kw["steer_resolution"] <= 0:

@@ -1,45 +1,35 @@
 """Scenario files: a robot, a step, a duration, a command script and checks.
 
 See README "Scenario file".  Loading validates everything up front, so a run
-never fails half-way on bad input.
+never fails half-way on bad input.  A scenario file is a regular file of at
+most :data:`MAX_BYTES`; a longer script belongs in a command log
+(:mod:`sim.files.commandlog`, read in blocks).  The robot, route and floor
+files and the command log named in a scenario must be regular files too.
 """
 from __future__ import annotations
 
 import hashlib
 import math
 import os
+import stat
 from dataclasses import dataclass, replace
 
 from sim.files import fields as F
 from sim.engine.simulator import ALIGN_POLICIES, DEFAULT_ALIGN_TOLERANCE
-from sim.errors import InputError
-from sim.files.robotfile import load_robot, robot_from_data
-from sim.files.table import read_table
+from sim.errors import InputError, quote
+from sim.files.commandlog import Command, CommandLog, read_command_log
+from sim.files.reading import read_limited
+from sim.files.robotfile import read_robot, robot_from_data
 from sim.model.robot import Robot
-from sim.files.yamlread import load_file
+from sim.files.yamlread import load_bytes
 
 MAX_STEPS = 10 ** 9
+MAX_BYTES = 256 * 1024
 _KEYS = ("robot", "step", "duration", "start", "align", "align_tolerance", "skid", "script",
          "commands", "route", "controller", "checks", "odometry", "control_period", "observe_truth",
          "floor", "description")
 CHECK_KINDS = ("pose", "slip_below", "slip_above", "wheel", "odometry_error_below", "arrive_within",
                "tracking_error_below", "clearance_above", "no_contact")
-
-
-@dataclass(frozen=True)
-class Command:
-    """One script entry, held from ``at`` (s) until the next.
-
-    kind : ``twist`` (value (vx, vy, omega), body frame), ``world_twist`` (value (vx, vy,
-    omega), world frame: turned into the body frame every step), ``wheels`` (value
-    {name: {"spin"?, "steer"?}}), ``stop``, or ``goto`` (value (x, y, theta or None): plan
-    a route there from wherever the base is and track it).
-    """
-
-    at: float
-    kind: str
-    value: object = None
-    line: int | None = None
 
 
 @dataclass(frozen=True)
@@ -121,10 +111,8 @@ def _hash_bytes(data: bytes) -> str:
 def load_scenario(path: str | os.PathLike) -> Scenario:
     """Read and validate a scenario file.  Raises :class:`InputError`."""
     source = os.fspath(path)
-    data = load_file(source)
-    with open(source, "rb") as fh:
-        scen_hash = _hash_bytes(fh.read())
-    return scenario_from_data(data, source, scen_hash)
+    raw = read_limited(source, MAX_BYTES, "scenario file")
+    return scenario_from_data(load_bytes(raw, source), source, _hash_bytes(raw))
 
 
 def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> Scenario:
@@ -176,7 +164,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
             raise at("controller").error("controller settings need a 'route' or 'goto' entries in the script")
         controller, headroom = _controller(data["controller"], at("controller"), robot)
     if "commands" in data:
-        script = _commands_csv(data["commands"], at("commands"), base_dir, robot)
+        script = _commands_csv(data["commands"], at("commands"), base_dir, robot, duration)
     elif "script" in data:
         script = _script(data["script"], at("script"), robot)
     elif "route" in data:
@@ -185,7 +173,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
                                     start if "start" in data else None, headroom)
     else:
         script = []  # commands come from a controller or a client (checked when run)
-    for c in script:
+    for c in () if isinstance(script, CommandLog) else script:  # a command log checks its own times
         if c.at > duration + 1e-12:
             raise InputError(where.source, c.line, f"command at t={c.at:g} s comes after the end of the run "
                              f"({duration:g} s); shorten the script or lengthen 'duration'")
@@ -193,7 +181,7 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
     checks = _checks(data.get("checks", []), at("checks"), robot, duration) if "checks" in data else ()
     for c in checks:
         if c.kind in ("arrive_within", "tracking_error_below") and route is None \
-                and not any(e.kind == "goto" for e in script):
+                and (isinstance(script, CommandLog) or not any(e.kind == "goto" for e in script)):
             raise InputError(where.source, c.line, f"{c.kind} needs a 'route' or 'goto' entries in the script")
         if c.kind in ("clearance_above", "no_contact") and floor is None:
             raise InputError(where.source, c.line, f"check '{c.kind}' needs a floor: add 'floor: FILE.geojson' "
@@ -213,7 +201,8 @@ def scenario_from_data(data, source="<inline>", scen_hash="", base_dir=None) -> 
         if abs(ratio - round(ratio)) > 1e-6 * max(1.0, ratio) or round(ratio) < 1:
             raise at("control_period").error(f"{period:g} s is not a whole number of steps of {step:g} s")
     truth = F.boolean(data["observe_truth"], at("observe_truth")) if "observe_truth" in data else False
-    return Scenario(robot, step, duration, start, align, tol, tuple(script), tuple(checks),
+    script = script if isinstance(script, CommandLog) else tuple(script)
+    return Scenario(robot, step, duration, start, align, tol, script, tuple(checks),
                     source, robot_hash, scen_hash, odometry, desc, skid, warnings, route, plan, controller,
                     headroom, period, truth, "script" in data or "commands" in data or "route" in data,
                     floor)
@@ -230,8 +219,7 @@ def _route(value, where, base_dir, robot, start, headroom):
 
     if isinstance(value, str):
         path = value if os.path.isabs(value) else os.path.join(base_dir, value)
-        if not os.path.isfile(path):
-            raise where.error(f"route file '{value}' not found (looked for {os.path.normpath(path)})")
+        _regular(value, path, where, "route file")
         route = load_route(os.path.relpath(path) if not os.path.isabs(value) else path)
     elif isinstance(value, dict):
         route = route_from_data(value, where.source, where)
@@ -277,7 +265,7 @@ def _start_steer(robot, value, where):
     for name, v in m.items():
         w = where.at(m, name)
         if name not in robot.index:
-            raise w.error(f"no wheel named '{name}'{F.suggest(name, robot.index)}")
+            raise w.error(f"no wheel named {quote(name)}{F.suggest(name, robot.index)}")
         wheel = robot.wheel(name)
         if wheel.type not in ("steered", "castor"):
             raise w.error(f"wheel '{name}' is {wheel.type}; only steered wheels and castors have a starting angle")
@@ -289,14 +277,25 @@ def _start_steer(robot, value, where):
     return replace(robot, wheels=tuple(wheels))
 
 
+def _regular(value, path, where, what) -> None:
+    """InputError at the scenario's line unless ``path`` is an existing regular file."""
+    try:
+        st = os.stat(path)
+    except (OSError, ValueError):
+        st = None
+    if st is None:
+        raise where.error(f"{what} {quote(value)} not found (looked for {quote(os.path.normpath(path), 80)})")
+    if not stat.S_ISREG(st.st_mode):
+        raise where.error(f"{what} {quote(value)} is not a regular file (a folder, FIFO or device); "
+                          "expected a file")
+
+
 def _robot(value, where, base_dir):
     if isinstance(value, str):
         path = value if os.path.isabs(value) else os.path.join(base_dir, value)
-        if not os.path.isfile(path):
-            raise where.error(f"robot file '{value}' not found (looked for {os.path.normpath(path)})")
-        robot = load_robot(os.path.relpath(path) if not os.path.isabs(value) else path)
-        with open(path, "rb") as fh:
-            return robot, _hash_bytes(fh.read())
+        _regular(value, path, where, "robot file")
+        robot, raw = read_robot(os.path.relpath(path) if not os.path.isabs(value) else path)
+        return robot, _hash_bytes(raw)
     if isinstance(value, dict):
         robot = robot_from_data(value, where.source, where)
         return robot, _hash_bytes(repr(sorted(value.items())).encode())
@@ -308,8 +307,7 @@ def _floor(value, where, base_dir):
     from sim.files.floorfile import floor_from_data, load_floor  # optional feature, own module
     if isinstance(value, str):
         path = value if os.path.isabs(value) else os.path.join(base_dir, value)
-        if not os.path.isfile(path):
-            raise where.error(f"floor file '{value}' not found (looked for {os.path.normpath(path)})")
+        _regular(value, path, where, "floor file")
         return load_floor(os.path.relpath(path) if not os.path.isabs(value) else path)
     if isinstance(value, dict):
         return floor_from_data(value, where)
@@ -379,7 +377,7 @@ def _wheels(value, where, robot):
     for name, cmd in m.items():
         w = where.at(m, name)
         if name not in robot.index:
-            raise w.error(f"no wheel named '{name}'{F.suggest(name, robot.index)}; wheels: {', '.join(robot.index)}")
+            raise w.error(f"no wheel named {quote(name)}{F.suggest(name, robot.index)}; wheels: {', '.join(robot.index)}")
         wheel = robot.wheel(name)
         if isinstance(cmd, dict):
             F.check_keys(cmd, ("spin", "steer"), w)
@@ -398,55 +396,14 @@ def _wheels(value, where, robot):
     return out
 
 
-def _commands_csv(value, where, base_dir, robot):
-    """A command log (CSV or Parquet, see README "Scenario file") -> script entries."""
+def _commands_csv(value, where, base_dir, robot, duration) -> CommandLog:
+    """A command log (CSV or Parquet, see README "Scenario file") -> a :class:`CommandLog`."""
     if not isinstance(value, str):
         raise where.error("expected the path of a command log (CSV or Parquet)")
     path = value if os.path.isabs(value) else os.path.join(base_dir, value)
     src = os.path.relpath(path) if not os.path.isabs(value) else path
-    if not os.path.isfile(path):
-        raise where.error(f"command log '{value}' not found")
-    table = read_table(path, "empty command log; expected a header row starting with t", "command log", src)
-    header, head = table.header, table.header_line
-    if not header or header[0] != "t":
-        raise InputError(src, head, "the first column must be 't' (s)")
-    cols = header[1:]
-    twist_cols = {"vx", "vy", "omega"}
-    is_twist = bool(cols) and set(cols) <= twist_cols
-    if not is_twist:
-        for c in cols:
-            name, _, part = c.partition(".")
-            if c in twist_cols:
-                raise InputError(src, head, "a command log holds either twist columns (vx, vy, omega) or wheel columns (NAME.spin, NAME.steer), not both")
-            if name not in robot.index or part not in ("spin", "steer"):
-                raise InputError(src, head, f"unknown column '{c}'{F.suggest(c, [n + '.spin' for n in robot.index])}; "
-                                 "allowed: t, vx, vy, omega, or NAME.spin / NAME.steer per wheel")
-            wh = robot.wheel(name)
-            if part == "spin" and not wh.driven:
-                raise InputError(src, head, f"column '{c}': wheel '{name}' is not driven")
-            if part == "steer" and wh.type != "steered":
-                raise InputError(src, head, f"column '{c}': wheel '{name}' is not steered")
-    out = []
-    last = -math.inf
-    for ln, row in table.rows:
-        vals = [table.number(cell, ln, c) for c, cell in zip(header, row)]
-        t = vals[0]
-        if t < 0 or t <= last:
-            raise table.error(ln, f"'t' must start at >= 0 and increase, got {t:g} after {last:g}")
-        last = t
-        line = ln if isinstance(ln, int) else None
-        if is_twist:
-            d = dict(zip(cols, vals[1:]))
-            out.append(Command(t, "twist", (d.get("vx", 0.0), d.get("vy", 0.0), d.get("omega", 0.0)), line))
-        else:
-            cmds = {}
-            for c, v in zip(cols, vals[1:]):
-                name, _, part = c.partition(".")
-                cmds.setdefault(name, {})[part] = v
-            out.append(Command(t, "wheels", cmds, line))
-    if not out:
-        raise InputError(src, 2 if head else None, "command log has no rows")
-    return out
+    _regular(value, path, where, "command log")
+    return read_command_log(path, src, robot, duration)
 
 
 def _check_time(item, w, duration):
@@ -506,7 +463,7 @@ def _checks(items, where, robot, duration):
             t = _check_time(item, w, duration)
             nm = item["wheel"]
             if nm not in robot.index:
-                raise w.at(item, "wheel").error(f"no wheel named '{nm}'{F.suggest(nm, robot.index)}")
+                raise w.at(item, "wheel").error(f"no wheel named {F.describe(nm)}{F.suggest(nm, robot.index)}")
             p = {"wheel": nm}
             if "steer" in item:
                 p["steer"] = F.angle(item["steer"], w.at(item, "steer"))

@@ -15,8 +15,11 @@ import math
 import os
 from dataclasses import dataclass
 
-from sim.errors import InputError
+from sim.errors import InputError, clip, quote
 from sim.files import fields as F
+from sim.files.reading import open_regular, read_limited
+
+MAX_BYTES = 16 << 20   # a small table is read whole: at most this much (command logs are read in blocks)
 
 PARQUET_MAGIC = b"PAR1"
 
@@ -54,14 +57,17 @@ class Table:
             try:
                 v = float(cell)
             except (TypeError, ValueError):
-                raise self.error(where, f"column '{column}': expected a number, got '{cell}'") from None
+                raise self.error(where, f"column {quote(column)}: expected a number, got {quote(cell)}") from None
         elif cell is None:
             raise self.error(where, f"column '{column}': expected a number{' (' + unit + ')' if unit else ''}, "
                                     "got a blank cell")
         else:
             v = float(cell)
         if not math.isfinite(v):
-            raise self.error(where, f"column '{column}': expected a finite number, got {v!r}")
+            raise self.error(where, f"column {quote(column)}: expected a finite number, got {v!r}")
+        if abs(v) > F.limit_for(unit):
+            raise self.error(where, f"column {quote(column)}: {F.describe_range(F.limit_for(unit), unit)}, "
+                                    f"got {v:g}")
         return v
 
     @staticmethod
@@ -70,11 +76,12 @@ class Table:
 
 
 def is_parquet(path) -> bool:
-    """Whether the file at ``path`` starts with the Parquet signature."""
+    """Whether the file at ``path`` starts with the Parquet signature (False for anything but a
+    regular file, which its reader then refuses; a FIFO is never waited on)."""
     try:
-        with open(path, "rb") as fh:
+        with open_regular(path) as fh:
             return fh.read(4) == PARQUET_MAGIC
-    except OSError:
+    except (InputError, OSError):
         return False
 
 
@@ -87,16 +94,17 @@ def read_table(path, empty: str, what: str = "file", source: str | None = None) 
     path = os.fspath(path)
     source = source or path
     try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
-    except OSError as exc:
-        raise InputError(source, None, f"cannot read the {what}: {exc.strerror}") from None
+        raw = read_limited(path, MAX_BYTES, what)
+    except InputError as exc:
+        raise InputError(source, exc.line, exc.message) from None
     if raw[:4] == PARQUET_MAGIC:
         return _parquet(path, source)
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        raise InputError(source, raw[: exc.start].count(b"\n") + 1, f"{what} is not UTF-8 text") from None
+        line = raw[: exc.start].count(b"\n") + 1
+        start = raw.rfind(b"\n", 0, exc.start) + 1
+        raise InputError(source, line, f"{what} is not UTF-8 text (byte {exc.start - start + 1} of this line)") from None
     reader = csv.reader(io.StringIO(text, newline=""), strict=True)
     header = F.csv_header(reader, source, empty)
     rows = list(F.csv_records(reader, source, len(header)))
@@ -109,7 +117,7 @@ def _parquet(path, source) -> Table:
         frame = pl.read_parquet(path)
     except Exception as exc:                               # noqa: BLE001 - polars raises several kinds
         msg = str(exc).strip().splitlines()
-        raise InputError(source, None, f"not a readable Parquet file: {msg[0] if msg else exc!r}") from None
+        raise InputError(source, None, f"not a readable Parquet file: {clip(msg[0] if msg else repr(exc), 100)}") from None
     header = [str(c).strip() for c in frame.columns]
     rows = [(f"row {i + 1}", list(r)) for i, r in enumerate(frame.iter_rows())]
     return Table(source, header, rows, True)

@@ -18,10 +18,11 @@ import filecmp
 import math
 import os
 import shutil
+import signal
 import tempfile
 
 from sim.errors import InputError
-from sim.files.atomic import signals_held
+from sim.files.atomic import check_target, signals_held
 from sim.runs.runner import run_scenario
 from sim.traces.diff import compare
 from sim.traces.meta import meta_path, provenance_notes, read_meta
@@ -84,8 +85,13 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
     """
     baseline = os.fspath(baseline)
     folder = os.path.dirname(os.path.abspath(baseline))
-    os.makedirs(folder, exist_ok=True)
-    tmp = tempfile.mkdtemp(prefix=".trundle-", dir=folder)
+    for target in (baseline, meta_path(baseline)):
+        check_target(target, "the baseline")
+    try:
+        os.makedirs(folder, exist_ok=True)
+        tmp = tempfile.mkdtemp(prefix=".trundle-", dir=folder)
+    except OSError as exc:
+        raise InputError(baseline, None, f"cannot write the baseline: {exc.strerror or exc}") from None
     try:
         new = os.path.join(tmp, "new" + os.path.splitext(baseline)[1])
         res = run_scenario(scen, csv=new, every=baseline_every(scen))
@@ -102,11 +108,15 @@ def record(scen, baseline, tol=DEFAULT_TOLERANCE, rules=()):
                 report = None                      # the old file was broken: just replace it
         same_meta = (keep_trace and os.path.isfile(meta_path(baseline))
                      and filecmp.cmp(meta_path(new), meta_path(baseline), shallow=False))
-        with signals_held():  # the trace and its sidecar change together
-            if not keep_trace:
-                os.replace(new, baseline)
-            if not same_meta:
-                os.replace(meta_path(new), meta_path(baseline))
+        # the trace and its sidecar change together (a batch's time limit, SIGALRM, waits too)
+        with signals_held((signal.SIGINT, signal.SIGTERM, signal.SIGALRM)):
+            try:
+                if not keep_trace:
+                    os.replace(new, baseline)
+                if not same_meta:
+                    os.replace(meta_path(new), meta_path(baseline))
+            except OSError as exc:
+                raise InputError(baseline, None, f"cannot write the baseline: {exc.strerror or exc}") from None
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     change = ("unchanged" if same_meta else "metadata" if keep_trace else "changed" if old_exists else "new")

@@ -17,16 +17,30 @@ picklable module-level function returning a plain dict (str, float, bool,
 list), so any executor (a process pool, a cluster) can run the same units.
 It never raises for a bad or crashing scenario: the outcome is in
 ``result``: ``pass`` | ``check failed`` | ``diverged`` | ``input error`` |
-``crashed``.
+``timed out`` | ``crashed``.
+
+Time limit
+----------
+:func:`run_units` gives each unit ``timeout`` seconds (``trundle batch
+--timeout``, default :data:`DEFAULT_TIMEOUT`).  The process running the unit
+(this one with one job, else its worker) sets an alarm (``SIGALRM``): when it
+rings the unit stops as on Ctrl-C (temporary files removed, no baseline
+replaced) and is reported ``timed out``.  A unit that does not stop at its
+alarm (stuck where Python cannot interrupt it) has its worker process
+stopped :data:`GRACE` seconds later and is reported ``timed out`` as well.
+Scenarios sent to a Dask cluster are not timed: the cluster's own limits apply.
 
 Results come back in the order of the units, whatever the number of jobs
 or the order of completion; each baseline file is written by its own unit.
 """
 from __future__ import annotations
 
+import contextlib
 import multiprocessing
 import os
 import re
+import signal
+import stat
 import sys
 import threading
 import time
@@ -37,7 +51,9 @@ from sim import procs
 from sim.errors import InputError
 from sim.traces.tolerance import DEFAULT_TOLERANCE
 
-RESULTS = ("pass", "check failed", "diverged", "input error", "crashed")
+RESULTS = ("pass", "check failed", "diverged", "input error", "timed out", "crashed")
+DEFAULT_TIMEOUT = 600.0   # s per scenario
+GRACE = 10.0              # s after its alarm before a unit's worker process is stopped
 SCENARIO_KEYS = ("robot", "script", "commands")
 SKIP_DIRS = ("robots", "studies")
 YAML_SUFFIXES = (".yaml", ".yml")
@@ -65,6 +81,8 @@ def looks_like_scenario(path) -> bool:
     from sim.files.yamlread import load_file
 
     try:
+        if not stat.S_ISREG(os.stat(path).st_mode):
+            return True  # a FIFO or device named *.yaml: listed, and reported as an input error
         with open(path, "rb") as fh:
             head = fh.read(1 << 16).decode("utf-8", "replace")
     except OSError:
@@ -86,9 +104,7 @@ def find_scenarios(paths) -> list:
     units, seen = [], set()
     for p in paths:
         p = os.fspath(p)
-        if os.path.isfile(p):
-            found = [Unit(p, os.path.basename(p))]
-        elif os.path.isdir(p):
+        if os.path.isdir(p):
             found = []
             for root, dirs, files in os.walk(p):
                 dirs[:] = sorted(d for d in dirs if d not in SKIP_DIRS and not d.startswith("."))
@@ -96,6 +112,8 @@ def find_scenarios(paths) -> list:
                     full = os.path.join(root, f)
                     if f.lower().endswith(YAML_SUFFIXES) and looks_like_scenario(full):
                         found.append(Unit(full, os.path.relpath(full, p)))
+        elif os.path.lexists(p):  # a file (or a FIFO, a device: the unit reports it)
+            found = [Unit(p, os.path.basename(p))]
         else:
             raise InputError(p, None, "no such file or folder")
         for u in found:
@@ -258,15 +276,66 @@ def died(path, why) -> dict:
             "first_divergence": "", "baseline": None, "change": None, "details": [why], "warnings": []}
 
 
+def timed_out(path, timeout, wall=None, why="") -> dict:
+    """The result of a unit stopped at its time limit."""
+    r = died(path, why or f"still running after {timeout:g} s (the time limit, --timeout); stopped")
+    r.update(result="timed out", wall=float(timeout if wall is None else wall))
+    return r
+
+
+class TimeLimit(BaseException):
+    """Raised in a unit when its time is up (a BaseException, so that nothing inside catches it)."""
+
+
+RING_AGAIN = 1.0  # s: the alarm rings again this often until the unit stops
+
+
+@contextlib.contextmanager
+def time_limit(seconds):
+    """Raise :class:`TimeLimit` in this thread after ``seconds`` (s; None or 0: no limit).
+
+    Uses ``SIGALRM``, so it works in the main thread on Unix; elsewhere it does nothing.
+    The alarm rings again every :data:`RING_AGAIN` s until the block ends, because an
+    exception raised where Python cannot pass it on (a callback from compiled code, such
+    as the JIT compiler's) is dropped.
+    """
+    if (not seconds or not hasattr(signal, "setitimer")
+            or threading.current_thread() is not threading.main_thread()):
+        yield
+        return
+
+    def ring(signum, frame):
+        raise TimeLimit
+
+    old = signal.signal(signal.SIGALRM, ring)
+    signal.setitimer(signal.ITIMER_REAL, float(seconds), RING_AGAIN)
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, old)
+
+
+def run_limited(work, args, kw, timeout) -> dict:
+    """``work(*args, **kw)`` under :func:`time_limit`; a unit out of time gives :func:`timed_out`."""
+    t0 = time.perf_counter()
+    try:
+        with time_limit(timeout):
+            return work(*args, **kw)
+    except TimeLimit:
+        return timed_out(args[0], timeout, time.perf_counter() - t0)
+
+
 def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLERANCE, rules=(),
-              on_done=None, work=run_one) -> list:
+              on_done=None, work=run_one, timeout=DEFAULT_TIMEOUT) -> list:
     """Run ``work`` for every unit; return the result dicts in unit order.
 
     ``jobs`` 1 runs in this process; more uses that many worker processes
     (:func:`_run_workers`).  A worker process that dies takes only the
     scenario it was running with it: that one is marked crashed and a new
-    worker takes over the rest.  ``on_done(index, result)`` is called as
-    results arrive (any order).
+    worker takes over the rest.  Each unit gets ``timeout`` seconds (None or
+    0: no limit; see the module docstring).  ``on_done(index, result)`` is
+    called as results arrive (any order).
     """
     units = list(units)
     results = [None] * len(units)
@@ -279,10 +348,14 @@ def run_units(units, baselines_dir=None, update=False, jobs=1, tol=DEFAULT_TOLER
             on_done(i, r)
 
     if jobs <= 1 or len(units) <= 1:
+        if timeout:  # as a worker does before its first unit: the time limit is the unit's own
+            import importlib
+            for name in PRELOAD:
+                importlib.import_module(name)
         for i, (a, kw) in enumerate(calls):
-            done(i, work(*a, **kw))
+            done(i, run_limited(work, a, kw, timeout))
     else:
-        _run_workers(calls, min(jobs, len(units)), work, done)
+        _run_workers(calls, min(jobs, len(units)), work, done, timeout)
     return results
 
 
@@ -293,20 +366,24 @@ def _stop_unit(signum, frame):
     raise KeyboardInterrupt  # the unit stops as on Ctrl-C: no baseline replaced, temporary files removed
 
 
-def _serve(conn, work, inherited=()):
+def _serve(conn, work, inherited=(), timeout=None):
     """Worker process: load the engine, then run ``(index, args, kwargs)`` messages
-    until ``None`` or the end of the pipe.
+    until ``None`` or the end of the pipe, each under :func:`time_limit` ``timeout``.
 
     ``inherited`` (forked workers): this process's copies of the parent's pipe
     ends, closed first, so that the pipe ends when the parent does.  SIGTERM
     (the parent stopping the batch) interrupts the running unit, which cleans up.
     """
-    import importlib
-    import signal
     for c in inherited:
         c.close()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
     signal.signal(signal.SIGTERM, _stop_unit)
+    with procs.interrupts_kept(signal.SIGTERM):
+        _serve_units(conn, work, timeout)
+
+
+def _serve_units(conn, work, timeout):
+    import importlib
     try:
         for name in PRELOAD:
             importlib.import_module(name)
@@ -319,7 +396,7 @@ def _serve(conn, work, inherited=()):
                 return
             i, args, kw = msg
             try:
-                r = work(*args, **kw)
+                r = run_limited(work, args, kw, timeout)
             except Exception as exc:                         # noqa: BLE001 - reported, not raised
                 r = died(args[0], f"the work unit failed: {exc!r}")
             try:
@@ -333,16 +410,17 @@ def _serve(conn, work, inherited=()):
 class _Worker:
     """A worker process, this end of its pipe, and the units sent to it (oldest = running)."""
 
-    def __init__(self, ctx, work, others=()):
+    def __init__(self, ctx, work, others=(), timeout=None):
         for stream in (sys.stdout, sys.stderr):  # a forked child must not write this process's buffered text again
             if stream is not None:
                 stream.flush()
         self.conn, child = ctx.Pipe()
         inherited = [self.conn, *(w.conn for w in others)] if ctx.get_start_method() == "fork" else []
-        self.proc = ctx.Process(target=_serve, args=(child, work, inherited), daemon=True)
+        self.proc = ctx.Process(target=_serve, args=(child, work, inherited, timeout), daemon=True)
         self.proc.start()
         child.close()
         self.sent = []
+        self.since = time.monotonic()  # when its oldest unit in ``sent`` started (about)
 
     def stop(self, hard=False):
         """Ask the worker to finish (``None``), or interrupt its unit (``hard``: SIGTERM)."""
@@ -355,25 +433,27 @@ class _Worker:
             pass
         self.conn.close()
 
-    def join(self):
-        self.proc.join(10.0)
+    def join(self, wait=10.0):
+        self.proc.join(wait)
         if self.proc.is_alive():  # a unit that does not stop when told
             self.proc.kill()
             self.proc.join()
 
 
-def _run_workers(calls, jobs, work, done) -> None:
+def _run_workers(calls, jobs, work, done, timeout=None) -> None:
     """Hand ``calls`` to ``jobs`` worker processes, a few at a time, and collect the results.
 
     One loop in this process waits on the workers' pipes (no threads), so a
     unit costs one small message each way.  A pipe that ends before its
-    result means the worker died while running its oldest unit.
+    result means the worker died while running its oldest unit.  A unit
+    still running :data:`GRACE` s after its time limit has its worker stopped.
     """
     from multiprocessing.connection import wait
 
     ctx = worker_context()
     todo = list(range(len(calls)))[::-1]  # a stack: the next unit last
     workers = []
+    limit = timeout + GRACE if timeout else None
 
     def feed(w):
         # one unit ahead while there is plenty left; near the end none, so no worker sits
@@ -381,6 +461,8 @@ def _run_workers(calls, jobs, work, done) -> None:
         depth = _IN_FLIGHT if len(todo) > len(workers) else 1
         while todo and len(w.sent) < depth:
             i = todo.pop()
+            if not w.sent:
+                w.since = time.monotonic()
             w.sent.append(i)
             try:
                 w.conn.send((i, *calls[i]))
@@ -388,9 +470,24 @@ def _run_workers(calls, jobs, work, done) -> None:
                 return
 
     def start():
-        w = _Worker(ctx, work, workers)
+        w = _Worker(ctx, work, workers, timeout)
         workers.append(w)
         return w
+
+    def overdue():
+        """Stop the workers whose running unit is past its limit; report those units."""
+        now = time.monotonic()
+        for w in [w for w in workers if w.sent and now - w.since > limit]:
+            i = w.sent.pop(0)
+            todo.extend(w.sent[::-1])
+            workers.remove(w)
+            w.stop(hard=True)
+            w.join(1.0)  # it ignored its alarm: do not wait long for it to take SIGTERM either
+            done(i, timed_out(calls[i][0][0], timeout, now - w.since,
+                              f"did not stop at its time limit of {timeout:g} s (--timeout); its worker "
+                              "process was stopped"))
+            if todo:
+                feed(start())
 
     finished = False
     try:
@@ -399,7 +496,14 @@ def _run_workers(calls, jobs, work, done) -> None:
         for w in workers:
             feed(w)
         while any(w.sent for w in workers):
-            for conn in wait([w.conn for w in workers if w.sent]):
+            wait_for = None
+            if limit:
+                wait_for = max(0.0, min(w.since + limit for w in workers if w.sent) - time.monotonic()) + 0.05
+            ready = wait([w.conn for w in workers if w.sent], wait_for)
+            if not ready:
+                overdue()
+                continue
+            for conn in ready:
                 w = next(w for w in workers if w.conn is conn)
                 try:
                     i, r = conn.recv()
@@ -414,6 +518,7 @@ def _run_workers(calls, jobs, work, done) -> None:
                         feed(start())
                     continue
                 w.sent.remove(i)
+                w.since = time.monotonic()
                 done(i, r)
                 feed(w)
         finished = True
@@ -466,7 +571,7 @@ def write_junit(path, results, suite="trundle batch") -> None:
     import xml.etree.ElementTree as ET
 
     failures = sum(r["result"] in ("check failed", "diverged") for r in results)
-    errors = sum(r["result"] in ("input error", "crashed") for r in results)
+    errors = sum(r["result"] in ("input error", "timed out", "crashed") for r in results)
     total = sum(r["wall"] for r in results)
     root = ET.Element("testsuites", name=suite, tests=str(len(results)), failures=str(failures),
                       errors=str(errors), time=f"{total:.3f}")
@@ -483,9 +588,5 @@ def write_junit(path, results, suite="trundle batch") -> None:
         el = ET.SubElement(tc, tag, message=f"{r['result']}: {first}", type=r["result"])
         el.text = "\n".join(r["details"])
     ET.indent(root)
-    path = os.fspath(path)
-    part = path + ".part"
-    with open(part, "wb") as fh:
-        ET.ElementTree(root).write(fh, encoding="utf-8", xml_declaration=True)
-        fh.write(b"\n")
-    os.replace(part, path)
+    from sim.files.atomic import write_bytes
+    write_bytes(path, ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n", "the JUnit report")

@@ -60,7 +60,7 @@ import numpy as np
 
 from sim.files import fields as F
 from sim.engine.simulator import Simulator
-from sim.errors import InputError
+from sim.errors import InputError, quote
 from sim.files.table import is_parquet, read_table
 from sim.theory.kinematics import inverse_matrix
 from sim.odometry.encoders import Odometer, OdometrySpec
@@ -430,7 +430,7 @@ def read_runs(path, side: float | None = None) -> SquareRuns:
     source = os.fspath(path)
     if source.lower().endswith(".csv") or is_parquet(source):
         return _read_table(source, side)
-    data = load_file(source)
+    data = load_file(source, what="file of return errors")
     where = F.Where(source, "", getattr(data, "line", 1) or 1)
     data = F.expect_map(data, where, "a mapping {side, cw, ccw}")
     F.check_keys(data, ("side", "cw", "ccw", "description"), where, required=("cw", "ccw"))
@@ -472,12 +472,12 @@ def _read_table(source, side):
     header = [h.lower() for h in table.header]
     if sorted(header) != ["direction", "x", "y"]:
         raise InputError(source, table.header_line,
-                         f"expected the columns direction,x,y (in any order), got {','.join(header)}")
+                         f"expected the columns direction,x,y (in any order), got {quote(','.join(header))}")
     col = {h: i for i, h in enumerate(header)}
     for ln, row in table.rows:
         d = table.text(row[col["direction"]]).strip().lower()
         if d not in pts:
-            raise table.error(ln, f"direction must be cw or ccw, got '{table.text(row[col['direction']])}'")
+            raise table.error(ln, f"direction must be cw or ccw, got {quote(table.text(row[col['direction']]))}")
         pts[d].append([table.number(row[col[c]], ln, c, "m") for c in ("x", "y")])
         first[d] = first[d] or (ln if isinstance(ln, int) else None)
     L = DEFAULT_SIDE if side is None else side

@@ -31,6 +31,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from sim.errors import InputError
+from sim.files import fields as F
 from sim.odometry.encoders import DeadReckoner
 from sim.theory.se2 import integrate, wrap
 from sim.model.robot import Robot
@@ -82,6 +83,15 @@ def record_from_columns(cols: dict, robot: Robot, wheels, source="<trace>") -> R
     return Record(source, t, pose, np.stack(dphi, axis=1), heading)
 
 
+def _unit(column: str) -> tuple:
+    """(unit, largest magnitude or None for the unit's) of a recorded-run column: counts may run past 1e6."""
+    part = column.rpartition(".")[2] if "." in column else column
+    if part == "counts":
+        return "counts", float(2 ** 53)
+    return {"t": ("s", None), "x": ("m", None), "y": ("m", None), "theta": ("rad", None),
+            "spin": ("rad/s", None), "steer": ("rad", None)}.get(part, ("", None))
+
+
 def read_record(path, robot: Robot, wheels) -> Record:
     """Read a recorded run, CSV or Parquet (see module docstring).  Raises InputError."""
     source = os.fspath(path)
@@ -106,6 +116,8 @@ def read_record(path, robot: Robot, wheels) -> Record:
         if missing:
             raise InputError(source, head, f"missing column(s): {', '.join(missing)}")
         cols = [rd.columns.index(c) for c in need]
+        units = [_unit(c) for c in need]
+        limits = np.array([F.limit_for(u) if lim is None else lim for u, lim in units])
         parts, last_t = [], -math.inf
         for page in rd.pages():
             v = page.values(cols=cols)
@@ -114,6 +126,11 @@ def read_record(path, robot: Robot, wheels) -> Record:
                 r, c = (int(x) for x in bad[0])
                 got = "a blank cell" if np.isnan(v[r, c]) else repr(float(v[r, c]))
                 raise page.error(r, f"column '{need[c]}': expected a finite number, got {got}")
+            over = np.argwhere(np.abs(v) > limits)
+            if len(over):
+                r, c = (int(x) for x in over[0])
+                raise page.error(r, f"column '{need[c]}': {F.describe_range(limits[c], units[c][0])}, "
+                                    f"got {v[r, c]:g}")
             t = v[:, 0]
             prev = np.concatenate([[last_t], t[:-1]])
             down = np.flatnonzero(t <= prev)

@@ -27,7 +27,8 @@ import os
 
 import numpy as np
 
-from sim.errors import InputError
+from sim.errors import InputError, clip, quote
+from sim.files.reading import open_regular
 from sim.files.table import PARQUET_MAGIC
 
 CHUNK_BYTES = 4 << 20          # CSV text per page
@@ -51,7 +52,7 @@ def check_header(names, path, require_t=True) -> tuple:
     seen = set()
     for n in names:
         if n in seen:
-            raise InputError(path, 1, f"column '{n}' appears twice in the header")
+            raise InputError(path, 1, f"column {quote(n)} appears twice in the header")
         seen.add(n)
     if require_t and "t" not in seen:
         raise InputError(path, 1, "no column 't'; expected a trace header such as t,x,y,theta,...")
@@ -161,8 +162,8 @@ class TraceReader:
         self._buf = b""
         self._pending = None
         self._offset = 0
-        try:
-            with open(self.path, "rb") as fh:
+        try:  # a regular file only: a FIFO or device is refused, never waited on
+            with open_regular(self.path, "trace") as fh:
                 self.kind = "parquet" if fh.read(4) == PARQUET_MAGIC else "csv"
         except OSError as exc:
             raise _open_error(self.path, exc) from None
@@ -360,7 +361,7 @@ class TraceReader:
             try:
                 cells = next(csv.reader([text]))
             except csv.Error as exc:
-                raise page.error(i, f"malformed CSV: {exc}") from None
+                raise page.error(i, f"malformed CSV: {clip(exc, 80)}") from None
             if len(cells) != self.nc:
                 hint = (" (the file ends inside this row: truncated?)"
                         if page.final and i == page.n - 1 and len(cells) < self.nc else "")
@@ -370,16 +371,16 @@ class TraceReader:
                 try:
                     out[k, j] = float(cell) if cell else np.nan
                 except ValueError:
-                    raise page.error(i, f"column '{self.columns[c]}': expected a number or a blank cell, "
-                                        f"got '{cell}'") from None
+                    raise page.error(i, f"column {quote(self.columns[c])}: expected a number or a blank cell, "
+                                        f"got {quote(cell)}") from None
             for c in set(range(self.nc)) - set(cols):       # the other cells must be numbers too
                 cell = cells[c].strip()
                 if cell:
                     try:
                         float(cell)
                     except ValueError:
-                        raise page.error(i, f"column '{self.columns[c]}': expected a number or a blank "
-                                            f"cell, got '{cell}'") from None
+                        raise page.error(i, f"column {quote(self.columns[c])}: expected a number or a blank "
+                                            f"cell, got {quote(cell)}") from None
         return out
 
 

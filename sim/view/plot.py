@@ -537,7 +537,7 @@ def _box_of(pts):
 
 
 def plot_traces(path, out, compare=None, max_rows: int = 20000, floor=None, outline=None):
-    """Read ``path`` (and ``compare``), write the figure as PNG to ``out`` (through ``.part``).
+    """Read ``path`` (and ``compare``), write the figure as PNG to ``out`` (:mod:`sim.files.atomic`).
 
     ``floor`` (:class:`~sim.model.floor.Floor`) with ``outline`` (the footprint,
     (k, 2) m body frame) measures the first trace's clearance on every row and
@@ -562,16 +562,18 @@ def plot_traces(path, out, compare=None, max_rows: int = 20000, floor=None, outl
         raise InputError("-o", None, f"directory '{os.path.dirname(out) or '.'}' does not exist")
     clearance = traces[0].clearance = meter.result() if meter is not None else None
     fig = figure(traces, floor, clearance)
-    part = os.fspath(out) + ".part"
-    try:
-        with open(part, "wb") as fh:
-            fig.savefig(fh, format="png", metadata={"Software": None})
-        os.replace(part, out)
-    except BaseException:
-        if os.path.exists(part):
-            os.remove(part)
-        raise
+    _save_png(fig, out, metadata={"Software": None})
     return fig, traces
+
+
+def _save_png(fig, path, **kw) -> None:
+    """Write ``fig`` as a PNG at ``path``, whole or not at all (:mod:`sim.files.atomic`)."""
+    import io
+
+    from sim.files.atomic import write_bytes
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", **kw)
+    write_bytes(path, buf.getvalue(), "the PNG")
 
 
 def plot_square_test(path, before, after=None, title: str = "") -> bool:
@@ -608,13 +610,5 @@ def plot_square_test(path, before, after=None, title: str = "") -> bool:
     ax.set_aspect("equal", adjustable="datalim")
     ax.legend(loc="best", fontsize=8)
     ax.set_title(title or f"square test, side {before.side:g} m (+ centre of gravity)", fontsize=10)
-    path = os.fspath(path)
-    part = path + ".part"
-    try:
-        fig.savefig(part, format="png")
-        os.replace(part, path)
-    except BaseException:
-        if os.path.exists(part):
-            os.remove(part)
-        raise
+    _save_png(fig, path)
     return True

@@ -23,8 +23,8 @@ import json
 import os
 
 from sim.errors import InputError
-from sim.files.atomic import write_text
 from sim.engine.record import columns
+from sim.files.atomic import check_target, write_text
 from sim.traces.writer import TraceWriter, row_values
 
 
@@ -54,6 +54,10 @@ class Recorder:
         if not os.path.isdir(d):
             raise InputError("--record", None, f"directory '{os.path.dirname(self.path) or '.'}' does not exist")
         self.log_path, self.scen_path = companion_paths(self.path)
+        from sim.traces.meta import meta_path
+        for target, what in ((self.path, "the trace"), (meta_path(self.path), "the trace's sidecar"),
+                             (self.log_path, "the command log"), (self.scen_path, "the replay scenario")):
+            check_target(target, what)
         self.robot, self.robot_path, self.step = robot, os.fspath(robot_path), float(step)
         self.align = align
         self.policy_changes = []

@@ -1038,17 +1038,14 @@ def to_array(surface) -> np.ndarray:
 
 
 def save_png(surface, path) -> None:
-    """Write ``surface`` as a PNG at ``path`` (through ``path + '.part'``, then renamed)."""
+    """Write ``surface`` as a PNG at ``path``, whole or not at all (:mod:`sim.files.atomic`)."""
+    import io
+
+    from sim.files.atomic import write_bytes
     pg = _pg()
-    part = os.fspath(path) + ".part"
-    try:
-        with open(part, "wb") as fh:
-            pg.image.save(surface, fh, "frame.png")
-        os.replace(part, path)
-    except BaseException:
-        if os.path.exists(part):
-            os.remove(part)
-        raise
+    buf = io.BytesIO()
+    pg.image.save(surface, buf, "frame.png")
+    write_bytes(path, buf.getvalue(), "the PNG")
 
 
 # --------------------------------------------------------------------------
