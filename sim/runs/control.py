@@ -32,6 +32,7 @@ command held).
 """
 from __future__ import annotations
 
+import abc
 import importlib
 import math
 import os
@@ -225,15 +226,16 @@ class Decision:
     extra: tuple = ()
 
 
-class Driver:
+class Driver(abc.ABC):
     """Decides a controlled run (see the module docstring): ``decide(k, left, sensors)``
     returns a :class:`Decision` for row ``k`` (``left`` more steps may follow it) or
     None to end the run with row k.  ``columns``: extra trace columns it fills."""
 
     columns = ()
 
+    @abc.abstractmethod
     def decide(self, k: int, left: int, sensors: "Sensors") -> "Decision | None":
-        raise NotImplementedError
+        """The decision for row ``k`` (every driver defines it)."""
 
     def final_extra(self) -> tuple:
         """Values of ``columns`` for the last row, after ``decide`` ended the run."""
