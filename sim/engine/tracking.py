@@ -63,7 +63,7 @@ from sim.jit import kernel
 from sim.theory.constraints import motion_rows_into
 from sim.theory.kinematics import solve_motion
 from sim.theory.linalg import pinv_into
-from sim.theory.se2 import compose, exp_increment, wrap
+from sim.theory.se2 import compose, exp_increment, log_twist, wrap
 
 LAW_OMNI, LAW_KANAYAMA, LAW_STEERED = 0, 1, 2
 LAWS = {"omni": LAW_OMNI, "kanayama": LAW_KANAYAMA, "steered": LAW_STEERED}
@@ -132,19 +132,7 @@ def feedforward(plan_t, plan_pose, plan_speed, t, dt, out):
     c, s = math.cos(r0[2]), math.sin(r0[2])
     dx = c * (r1[0] - r0[0]) + s * (r1[1] - r0[1])
     dy = -s * (r1[0] - r0[0]) + c * (r1[1] - r0[1])
-    w = r1[2] - r0[2]
-    if abs(w) < 1e-4:
-        w2 = w * w
-        sinc = 1.0 - w2 / 6.0 + w2 * w2 / 120.0
-        cosc = w / 2.0 - w * w2 / 24.0 + w * w2 * w2 / 720.0
-    else:
-        sinc = math.sin(w) / w
-        cosc = (1.0 - math.cos(w)) / w
-    # (dx, dy) = [[sinc, -cosc], [cosc, sinc]] (vx, vy) dt
-    det = sinc * sinc + cosc * cosc
-    out[0] = (sinc * dx + cosc * dy) / det / dt
-    out[1] = (-cosc * dx + sinc * dy) / det / dt
-    out[2] = w / dt
+    out[0], out[1], out[2] = log_twist(dx, dy, r1[2] - r0[2], dt)
     return k
 
 

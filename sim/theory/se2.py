@@ -38,6 +38,16 @@ def exp_increment(vx, vy, w, dt):
 
 
 @physics
+def log_twist(dx, dy, dth, dt):
+    """The body twist (vx, vy, w) that, held for ``dt`` s, gives the body-frame increment
+    (dx, dy, dth) (m, m, rad): the inverse of :func:`exp_increment` (the SE(2) logarithm over dt).
+    The increment is ``V (v dt)`` with ``V = [[sinc, -cosc], [cosc, sinc]]`` of ``dth``."""
+    sinc, cosc, _ = exp_increment(1.0, 0.0, dth, 1.0)   # V's first column (unit speed for 1 s)
+    det = sinc * sinc + cosc * cosc
+    return (sinc * dx + cosc * dy) / det / dt, (-cosc * dx + sinc * dy) / det / dt, dth / dt
+
+
+@physics
 def compose(x, y, th, dx, dy, dth):
     """World pose after body-frame increment (dx, dy, dth) from pose (x, y, th)."""
     c, s = math.cos(th), math.sin(th)
@@ -88,13 +98,10 @@ def body_twist_for_world(theta: float, world_twist, dt: float) -> np.ndarray:
     origin by exactly ``(vx, vy) dt`` in the world frame while turning by ``omega dt``.
 
     ``world_twist`` is ``(vx, vy, omega)`` with the velocity in the world frame (m/s,
-    rad/s).  Inverts :func:`exp_increment`: the increment is ``V (v_body dt)`` with
-    ``V = [[sinc, -cosc], [cosc, sinc]]`` of ``phi = omega dt``.
+    rad/s).  :func:`log_twist` of that displacement.
     """
     vx, vy, w = (float(v) for v in world_twist)
     c, s = math.cos(theta), math.sin(theta)
-    a, b = c * vx + s * vy, -s * vx + c * vy          # world velocity in the start body frame
-    sinc, cosc, _ = exp_increment(1.0, 0.0, w, float(dt))   # V's first column (unit speed, dt = 1 s scale)
-    sinc, cosc = sinc / dt, cosc / dt
-    det = sinc * sinc + cosc * cosc
-    return np.array([(sinc * a + cosc * b) / det, (-cosc * a + sinc * b) / det, w])
+    dt = float(dt)
+    # the world displacement over dt in the start body frame, and the turn
+    return np.array(log_twist((c * vx + s * vy) * dt, (-s * vx + c * vy) * dt, w * dt, dt))
