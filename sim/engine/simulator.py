@@ -189,6 +189,17 @@ class Simulator:
         for row, i, v in updates:
             S[row, i] = v
 
+    def command(self, kind: str, value=None) -> None:
+        """A command by kind: ``twist`` (value (3,)), ``wheels`` (value {name: ...}) or ``stop``."""
+        if kind == "twist":
+            self.command_twist(value)
+        elif kind == "wheels":
+            self.command_wheels(value)
+        elif kind == "stop":
+            self.stop()
+        else:
+            raise ValueError(f"command kind must be twist, wheels or stop, got {kind!r}")
+
     def stop(self) -> None:
         """All spin commands to 0, steer angles held where they are."""
         S, g = self._S, self._g

@@ -57,8 +57,8 @@ def lead_of(robot) -> bool:
 
 class ClosedLoop:
     """Runs ``scen`` under control on the simulator ``sim`` (at the scenario's start).
-    ``entry_steps`` (list) is the step at which each script entry takes effect and
-    ``apply(sim, command)`` applies an open-loop entry (both from :mod:`sim.runs.runner`).
+    ``entry_steps`` (list) is the step at which each script entry takes effect (from
+    :mod:`sim.runs.runner`); open-loop entries go to :meth:`Simulator.command`.
     ``odo``: an :class:`~sim.odometry.encoders.Odometer` or None; ``on_row``: called with
     every :class:`~sim.engine.record.StepResult`.
 
@@ -67,11 +67,10 @@ class ClosedLoop:
 
     columns = COLUMNS
 
-    def __init__(self, scen, entry_steps, apply, sim, odo=None, on_row=None):
+    def __init__(self, scen, entry_steps, sim, odo=None, on_row=None):
         self.scen = scen
         self.sim = sim
         self.ks = list(entry_steps)
-        self.apply = apply
         self.odo = odo
         self.on_row = on_row
         self.motion = motion_of(scen.robot)
@@ -105,7 +104,7 @@ class ClosedLoop:
             self.track, self.final, self.world = None, False, np.array(cmd.value, dtype=float)
         else:
             self.track, self.final, self.world = None, False, None
-            self.apply(sim, cmd)
+            sim.command(cmd.kind, cmd.value)
 
     def _goto(self, sim, cmd) -> Tracking:
         robot = self.scen.robot

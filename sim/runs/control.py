@@ -160,18 +160,6 @@ def as_command(value, robot, t: float = 0.0) -> Command | None:
     return Command(t, "twist", parse_twist(value))
 
 
-def apply(sim: Simulator, cmd: Command | None) -> None:
-    """Give ``cmd`` to the simulator (None keeps the current command)."""
-    if cmd is None:
-        return
-    if cmd.kind == "twist":
-        sim.command_twist(cmd.value)
-    elif cmd.kind == "wheels":
-        sim.command_wheels(cmd.value)
-    else:
-        sim.stop()
-
-
 class Sensors:
     """Readings of a running base: :meth:`observe` gives the :class:`Observation` now.
 
@@ -308,7 +296,8 @@ def controlled_blocks(scen, odo, driver, on_row=None, block_rows: int = 8192):
             ready.clear()
             if d is None:        # the driver ends the run: row k is the last
                 n, d = k + 1, Decision(extra=driver.final_extra())
-            apply(sim, d.command)
+            if d.command is not None:      # None keeps the current command
+                sim.command(d.command.kind, d.command.value)
             todo = max(1, min(int(d.steps), n - k))
             while todo:
                 m = min(todo, size - fill)

@@ -230,16 +230,6 @@ class _Checks:
         return cached
 
 
-def apply_command(sim: Simulator, cmd) -> None:
-    """Apply one script :class:`~sim.scenario.Command` to a simulator."""
-    if cmd.kind == "twist":
-        sim.command_twist(cmd.value)
-    elif cmd.kind == "wheels":
-        sim.command_wheels(cmd.value)
-    else:
-        sim.stop()
-
-
 def entry_steps(script, dt: float) -> list:
     """Step index at which each script entry takes effect: the first k with k dt >= at."""
     out = []
@@ -294,7 +284,7 @@ def _blocks(scen, odo, on_row):
             yield done(fill)
             fill, start = 0, k0
         for c in todo:
-            apply_command(sim, c)
+            sim.command(c.kind, c.value)
         sim.advance(m, out=buf[fill:fill + m])
         fill += m
     if fill:
@@ -339,7 +329,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         extra_cols += tuple(driver.columns)
     elif scen.closed_loop:
         from sim.runs.closedloop import ClosedLoop  # a controller computes the twist every step
-        loop = ClosedLoop(scen, entry_steps(scen.script, scen.step), apply_command, simulator_for(scen), odo, on_row)
+        loop = ClosedLoop(scen, entry_steps(scen.script, scen.step), simulator_for(scen), odo, on_row)
         blocks = loop.blocks()
         extra_cols += tuple(loop.columns)
     else:
