@@ -279,3 +279,17 @@ def csv_records(reader, source: str, ncells: int, first: int = 1):
             raise InputError(source, reader.line_num + shift, f"expected {ncells} cells, got {len(row)}")
     except csv.Error as exc:
         raise InputError(source, reader.line_num + shift, f"malformed CSV: {clip(exc, 80)}") from None
+
+
+def points(value, where: Where, what: str = "a list of points [x, y] (m)", noun: str = "point") -> list:
+    """A list of [x, y] pairs (m) into a list of (x, y) float tuples; ``noun`` names one pair
+    in messages ("point", "vertex")."""
+    items = expect_list(value, where, what)
+    pts = []
+    for k, item in enumerate(items):
+        w = where.at(items, k)
+        pair = expect_list(item, w, f"a {noun} [x, y] (m)")
+        if len(pair) != 2:
+            raise w.error(f"a {noun} is [x, y] (2 numbers, m), got {len(pair)} values")
+        pts.append((number(pair[0], w.at(pair, 0), unit="m"), number(pair[1], w.at(pair, 1), unit="m")))
+    return pts

@@ -301,15 +301,7 @@ def floor_from_data(data, where: F.Where) -> Floor:
 
 
 def _yaml_points(value, where):
-    items = F.expect_list(value, where, "a list of points [x, y] (m)")
-    pts = []
-    for k, item in enumerate(items):
-        w = where.at(items, k)
-        pair = F.expect_list(item, w, "a point [x, y] (m)")
-        if len(pair) != 2:
-            raise w.error(f"a point is [x, y] (2 numbers, m), got {len(pair)} values")
-        pts.append([F.number(pair[0], w.at(pair, 0), unit="m"), F.number(pair[1], w.at(pair, 1), unit="m")])
-    return pts
+    return [list(p) for p in F.points(value, where)]
 
 
 def _yaml_ring(value, where):

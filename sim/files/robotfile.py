@@ -109,14 +109,7 @@ def footprint_polygon(value, where: F.Where) -> tuple:
     """
     import shapely
 
-    items = F.expect_list(value, where, "a list of [x, y] vertices (m, body frame)")
-    pts = []
-    for i, item in enumerate(items):
-        w = where.at(items, i)
-        pair = F.expect_list(item, w, "a vertex [x, y] (m)")
-        if len(pair) != 2:
-            raise w.error(f"a vertex is [x, y] (2 numbers, m), got {len(pair)} values")
-        pts.append((F.number(pair[0], w.at(pair, 0), unit="m"), F.number(pair[1], w.at(pair, 1), unit="m")))
+    pts = F.points(value, where, "a list of [x, y] vertices (m, body frame)", noun="vertex")
     if len(pts) > 1 and pts[0] == pts[-1]:
         pts.pop()                                     # a closing vertex repeating the first is allowed
     if len(pts) < 3:
