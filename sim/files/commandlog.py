@@ -22,9 +22,9 @@ from itertools import islice
 
 import numpy as np
 
-from sim.errors import InputError, clip, quote
+from sim.errors import InputError, quote
 from sim.files import fields as F
-from sim.files.reading import open_regular, text_blocks, text_lines
+from sim.files.reading import open_regular, read_parquet, text_blocks, text_lines
 
 TWIST_COLUMNS = ("vx", "vy", "omega")
 PARQUET_MAGIC = b"PAR1"          # a file that starts so is read as Parquet
@@ -245,12 +245,7 @@ def _parquet(path, src, robot, duration) -> CommandLog:
     """A command log written as Parquet: its columns straight into arrays (polars)."""
     import polars as pl
 
-    try:
-        frame = pl.read_parquet(path)
-    except Exception as exc:                               # noqa: BLE001 - polars raises several kinds
-        msg = str(exc).strip().splitlines()
-        raise InputError(src, None, f"not a readable Parquet file: {clip(msg[0] if msg else repr(exc), 100)}") from None
-    header = [str(c).strip() for c in frame.columns]
+    frame, header = read_parquet(path, src)
     kind = _header(header, src, robot, None)
     if frame.height == 0:
         raise InputError(src, None, "command log has no rows")

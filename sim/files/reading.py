@@ -148,3 +148,17 @@ def text_lines(fh, source: str, what: str = "file", max_line: int = MAX_LINE):
         except UnicodeDecodeError as exc:
             raise InputError(source, n, f"{what} is not UTF-8 text (byte {exc.start + 1} of this line)") from None
         yield text
+
+
+def read_parquet(path, source):
+    """A whole (small) Parquet file through polars: (frame, header with names stripped).
+    A file polars cannot read is ``source: not a readable Parquet file: reason``."""
+    import polars as pl
+
+    from sim.errors import clip
+    try:
+        frame = pl.read_parquet(path)
+    except Exception as exc:                               # noqa: BLE001 - polars raises several kinds
+        msg = str(exc).strip().splitlines()
+        raise InputError(source, None, f"not a readable Parquet file: {clip(msg[0] if msg else repr(exc), 100)}") from None
+    return frame, [str(c).strip() for c in frame.columns]

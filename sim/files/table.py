@@ -15,9 +15,9 @@ import math
 import os
 from dataclasses import dataclass
 
-from sim.errors import InputError, clip, quote
+from sim.errors import InputError, quote
 from sim.files import fields as F
-from sim.files.reading import open_regular, read_limited
+from sim.files.reading import open_regular, read_limited, read_parquet
 
 MAX_BYTES = 16 << 20   # a small table is read whole: at most this much (command logs are read in blocks)
 
@@ -112,12 +112,6 @@ def read_table(path, empty: str, what: str = "file", source: str | None = None) 
 
 
 def _parquet(path, source) -> Table:
-    import polars as pl
-    try:
-        frame = pl.read_parquet(path)
-    except Exception as exc:                               # noqa: BLE001 - polars raises several kinds
-        msg = str(exc).strip().splitlines()
-        raise InputError(source, None, f"not a readable Parquet file: {clip(msg[0] if msg else repr(exc), 100)}") from None
-    header = [str(c).strip() for c in frame.columns]
+    frame, header = read_parquet(path, source)
     rows = [(f"row {i + 1}", list(r)) for i, r in enumerate(frame.iter_rows())]
     return Table(source, header, rows, True)
