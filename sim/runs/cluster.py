@@ -15,40 +15,28 @@ from sim.errors import InputError
 def run_units_dask(units, address, baselines_dir=None, update=False, tol=None, rules=(),
                    on_done=None, work=None) -> list:
     """Run every unit on the Dask scheduler at ``address``; results in unit order."""
-    try:
-        from distributed import Client, as_completed
-    except ImportError:
-        raise InputError("--scheduler", None,
-                         "needs dask.distributed: pip install 'trundle[cluster]'") from None
+    from functools import partial
+
     from sim.runs.batch import died, run_one
     from sim.traces.tolerance import DEFAULT_TOLERANCE
-    work = work or run_one
     tol = DEFAULT_TOLERANCE if tol is None else tol
     units = list(units)
     results = [None] * len(units)
-    try:
-        client = Client(address, timeout="10s", set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
-        raise InputError("--scheduler", None, f"cannot reach the Dask scheduler at {address}: {exc}") from None
-    try:
-        futs = {}
-        for i, u in enumerate(units):
-            f = client.submit(work, u.path, baselines_dir, update, rel=u.rel, tol=tol,
-                              rules=list(rules), pure=False, key=f"trundle-{i}-{u.rel}")
-            futs[f] = i
-        with client.as_current():
-            for f in as_completed(list(futs)):
-                i = futs[f]
-                try:
-                    r = f.result()
-                except Exception as exc:                     # noqa: BLE001 - a unit's crash is its result
-                    r = died(units[i].path, f"the work unit failed on the cluster: {exc!r}")
-                results[i] = r
-                if on_done:
-                    on_done(i, r)
-    finally:
-        client.close()
+    call = partial(_unit, work or run_one, baselines_dir, update, tol, list(rules))
+
+    def done(i, r):
+        results[i] = r
+        if on_done:
+            on_done(i, r)
+
+    map_dask(call, [(u.path, u.rel) for u in units], address, done,
+             lambda i, exc: died(units[i].path, f"the work unit failed on the cluster: {exc!r}"))
     return results
+
+
+def _unit(work, baselines_dir, update, tol, rules, path_rel):
+    path, rel = path_rel
+    return work(path, baselines_dir, update, rel=rel, tol=tol, rules=rules)
 
 
 def map_dask(fn, args, address, on_result, on_error, name="trundle") -> None:
