@@ -41,8 +41,7 @@ def kernel(fn):
     """Compile ``fn`` with :data:`OPTIONS` now (lazily on first call); makes sure
     the physics it may call is compiled too."""
     compile_all()
-    import numba
-    return numba.njit(**OPTIONS)(fn)
+    return _numba().njit(**OPTIONS)(fn)
 
 
 def compile_all() -> None:
@@ -51,7 +50,7 @@ def compile_all() -> None:
     global _done
     if _done == len(_PHYSICS):
         return
-    import numba
+    numba = _numba()
     compiled = {id(fn): (fn, numba.njit(**OPTIONS)(fn)) for fn in _PHYSICS[_done:]}
     for name, mod in list(sys.modules.items()):
         if mod is None or not (name == "sim" or name.startswith("sim.")):
@@ -62,3 +61,28 @@ def compile_all() -> None:
             if hit is not None and hit[0] is value:
                 d[key] = hit[1]
     _done = len(_PHYSICS)
+
+
+def _numba():
+    """numba, with its array-math module loaded without its probe of scipy's BLAS.
+
+    When scipy is installed, ``numba.np.arraymath`` imports
+    ``scipy.linalg.cython_blas`` as it loads (the first time anything compiles or
+    loads from the cache), only to pick the inner loop of ``np.convolve`` and
+    ``np.correlate``: about 0.35 s of a fresh process's first step on a quiet
+    machine.  Nothing here calls BLAS (:mod:`sim.theory.linalg` is written out), so
+    the probe is answered "absent" while that module loads; numba still imports
+    scipy's BLAS itself when some other code compiles ``np.dot`` or ``np.linalg``.
+    """
+    import numba
+    if "numba.np.arraymath" not in sys.modules:
+        probe = "scipy.linalg.cython_blas"
+        hide = probe not in sys.modules
+        if hide:
+            sys.modules[probe] = None       # import of it raises ImportError
+        try:
+            import numba.np.arraymath  # noqa: F401
+        finally:
+            if hide and sys.modules.get(probe, 0) is None:
+                del sys.modules[probe]
+    return numba

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import contextlib
-import multiprocessing
 import os
 import signal
 import sys
@@ -23,6 +22,7 @@ def pool_context(preload=()):
     thread stays locked in the child).  The fork server imports the modules
     named in ``preload`` once, so each worker starts with them loaded.
     """
+    import multiprocessing          # here: every command's start-up imports this module
     if "forkserver" in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context("forkserver")
         ctx.set_forkserver_preload(list(preload))

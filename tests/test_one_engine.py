@@ -98,6 +98,37 @@ def test_one_step_at_a_time_equals_a_stretch_byte_for_byte(wheels, script, align
     a, b = np.array(rows_one), np.vstack(rows_many)
     assert a.shape == b.shape
     assert a.tobytes() == b.tobytes()
+    _tally_matches_numpy(robot, b, [steps for steps, _ in script])
+
+
+def _tally_matches_numpy(robot, rows, cuts):
+    """The compiled run tally, folded whole or in the script's blocks, against numpy over all rows."""
+    from sim.engine.notes import Tally
+    from sim.engine.record import Block
+    whole, parts = Tally(robot, 0.01), Tally(robot, 0.01)
+    whole.fold(Block(0, rows, len(robot.wheels)))
+    k = 0
+    for m in cuts:
+        parts.fold(Block(k, rows[k:k + m], len(robot.wheels)))
+        k += m
+    assert whole.acc.tobytes() == parts.acc.tobytes()
+    blk = Block(0, rows, len(robot.wheels))
+    steps = np.diff(blk.pose[:, :2], axis=0)
+    assert whole.distance == pytest.approx(np.hypot(steps[:, 0], steps[:, 1]).sum(), rel=1e-12, abs=1e-15)
+    assert whole.peak_slip[0] == max(0.0, blk.slip.max())
+    kinds = whole.kinds
+    held = blk.held == 1.0
+    assert kinds.get("held", {}).get("rows", 0) == held.sum()
+    if held.any():
+        assert kinds["held"]["extreme"] == np.nan_to_num(np.abs(blk.to_go[held])).max()
+    scaled = blk.scale < 1.0
+    if scaled.any():
+        assert kinds["scaled"]["extreme"] == blk.scale[scaled].min()
+    lim = blk.at_limit == 1.0
+    if lim.any():
+        first = [np.argmax(lim[:, i]) if lim[:, i].any() else None for i in range(len(robot.wheels))]
+        order = sorted((f, i) for i, f in enumerate(first) if f is not None)
+        assert kinds["at_limit"]["wheels"] == [robot.wheels[i].name for _, i in order]
 
 
 CASES = [

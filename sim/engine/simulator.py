@@ -94,7 +94,7 @@ class Simulator:
         self._A = np.zeros((2 * n, 3))
         self._Pm = np.zeros((3, 2 * n))
         self._rows = np.zeros((2, 2 * n), dtype=np.int64)
-        self._Wk = np.zeros((2 * n, 3))
+        self._Wk = np.zeros((2 * n + 4, 3))
         self._args = (P, S, g, self._A, self._Pm, self._rows, self._Wk)
         self.align = align
         self.align_tolerance = float(align_tolerance)

@@ -44,7 +44,7 @@ State lives in plain arrays owned by the simulator:
     at), ``IK_STEER``, ``IK_SPIN`` (the request's wheel commands), ``TARGET`` (scratch).
 ``g`` (NG,)
     everything else: pose, command, settings, metric, admissible basis, cache flags.
-``A`` (2n, 3), ``Pm`` (3, 2n), ``rows`` (2, 2n) int, ``Wk`` (2n, 3)
+``A`` (2n, 3), ``Pm`` (3, 2n), ``rows`` (2, 2n) int, ``Wk`` (2n + 4, 3)
     the rows of the body-motion solve, their least-squares map, whose rows they
     are (wheel, rolling), and workspace; reused while the angles do not change.
 """
@@ -56,7 +56,7 @@ import numpy as np
 
 from sim.engine.record import NROW, NWHEEL, ROW, WHEEL
 from sim.jit import compile_all, kernel
-from sim.model.robot import (CASTOR, P_CODE, P_DRIVEN, P_MAX_ACCEL, P_MAX_SPIN, P_STEER_HI,
+from sim.model.robot import (CASTOR, FIXED, P_CODE, P_DRIVEN, P_MAX_ACCEL, P_MAX_SPIN, P_STEER_HI,
                              P_STEER_LO, P_STEER_RATE, P_TRAIL, P_X, P_Y, STEERED)
 from sim.theory.castor import swivel_one
 from sim.theory.constraints import motion_rows_into
@@ -166,9 +166,10 @@ def step_into(P, S, g, A, Pm, rows, Wk, out):
             spin[i] = min(max(S[SPIN_CMD, i], -P[P_MAX_SPIN, i]), P[P_MAX_SPIN, i])
     # 4. motion from t_k (the rows and their map kept while the angles stay the same)
     same = g[G_FK_OK] != 0.0
-    if same:
+    if same:              # only wheels that give rows count: a passive castor's swivel changes none
         for i in range(n):
-            if S[FK_HEAD, i] != head[i]:
+            if S[FK_HEAD, i] != head[i] and (P[P_DRIVEN, i] != 0.0 or P[P_CODE, i] == FIXED
+                                             or P[P_CODE, i] == STEERED):
                 same = False
                 break
     if not same:

@@ -89,7 +89,7 @@ def motion_now(P, scale, heading, spin, A, Pm, rows, W, residual, xi):
     """Body twist ``xi`` (3,) the wheels give at ``heading``, ``spin`` (n,): the motion from
     t_k that the engine computes (the same rows, map and solve as :mod:`sim.engine.step`).
     ``P`` the packed wheels, ``scale`` the twist metric (3,); ``A`` (2n, 3), ``Pm`` (3, 2n),
-    ``rows`` (2, 2n) int, ``W`` (2n, 3), ``residual`` (2n,) are workspace."""
+    ``rows`` (2, 2n) int, ``W`` (2n + 4, 3), ``residual`` (2n,) are workspace."""
     m = motion_rows_into(P, heading, A, rows[0], rows[1])
     pinv_into(A, m, scale, W, Pm)
     solve_motion(P, A, Pm, m, rows[0], rows[1], spin, xi, residual)
@@ -300,7 +300,7 @@ def run_tracking(P, S, g, A, Pm, rows, Wk, out, extra, law, lead, t0, plan_t, pl
     ctl = np.empty(OUT_SIZE)
     now = np.empty(3)
     A2 = np.empty((2 * n, 3))
-    W2 = np.empty((2 * n, 3))
+    W2 = np.empty((2 * n + 4, 3))
     res2 = np.empty(2 * n)
     Pm2 = np.empty((3, 2 * n))
     rows2 = np.empty((2, 2 * n), np.int64)

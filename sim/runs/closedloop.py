@@ -89,7 +89,7 @@ class ClosedLoop:
         self.lead = lead_of(scen.robot)
         n = len(scen.robot.wheels)
         self._fk = (scen.robot.packed, twist_scale(scen.robot), np.zeros((2 * n, 3)), np.zeros((3, 2 * n)),
-                    np.zeros((2, 2 * n), dtype=np.int64), np.zeros((2 * n, 3)), np.zeros(2 * n))
+                    np.zeros((2, 2 * n), dtype=np.int64), np.zeros((2 * n + 4, 3)), np.zeros(2 * n))
 
     # -- script ------------------------------------------------------------------------
     def _command(self, sim, i, cmd):

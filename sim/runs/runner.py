@@ -11,7 +11,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from sim.engine.notes import Decisions
+from sim.engine.notes import Tally
 from sim.engine.record import Block, columns
 from sim.engine.simulator import Simulator
 from sim.files.scenario import Scenario
@@ -339,9 +339,8 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     kept = [] if keep else None
     res = RunResult(scen)
     checks = _Checks(scen)
-    decisions = Decisions(scen.robot, scen.step)
+    tally = Tally(scen.robot, scen.step)
     n = scen.steps
-    last_pos = None
     try:
         for block, extra in blocks:
             if writer or kept is not None:
@@ -355,9 +354,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
                     writer.write_block(vals)
                 if kept is not None:
                     kept.append(vals)
-            _account(res, checks, block, last_pos)  # after writing: the summary never claims unwritten rows
-            decisions.fold(block)
-            last_pos = block.pose[-1, :2]
+            _account(res, checks, tally, block)  # after writing: the summary never claims unwritten rows
     except KeyboardInterrupt:
         res.interrupted = True
     except BaseException:
@@ -368,7 +365,8 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
         writer.close(complete=not res.interrupted)    # the trace, then its sidecar
     if odo:
         res.odometry = odo.summary()
-    res.decisions, res.notes = decisions.as_dict(), decisions.lines()
+    _figures(res, tally)
+    res.decisions, res.notes = tally.as_dict(), tally.lines()
     if loop:
         res.tracking = loop.summary()
     res.checks = checks.evaluate(res, res.odometry)
@@ -378,37 +376,28 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     return res
 
 
-def _metric(robot) -> np.ndarray:
-    """Weights making a twist error one number: (1, 1, L) with L the base size (m)."""
-    return np.array([1.0, 1.0, robot.size])
-
-
-def _account(res: RunResult, checks, block, last_pos) -> None:
-    """Fold one block of rows into the running summary."""
+def _account(res: RunResult, checks, tally, block) -> None:
+    """Fold one block of rows into the running summary and the checks."""
     m = len(block)
     checks.last = block.row(m - 1)
     checks.observe(block)
     for k in checks.at_rows:
         if block.k0 <= k < block.k0 + m:
             checks.at_rows[k] = block.row(k - block.k0)
-    p = block.pose[:, :2]
-    steps = np.diff(p, axis=0) if last_pos is None else np.diff(np.vstack([last_pos, p]), axis=0)
-    res.distance += float(np.sum(np.hypot(steps[:, 0], steps[:, 1])))
-    i = int(np.argmax(block.slip))
-    if block.slip[i] > res.peak_slip:
-        res.peak_slip, res.peak_slip_t = float(block.slip[i]), float(block.t[i])
-    if (block.fit == 1.0).any():  # projected requests: the shortfall is 0 elsewhere
-        w = block.shortfall * _metric(res.scenario.robot)
-        j = int(np.argmax(np.einsum("ij,ij->i", w, w)))
-        sf = float(np.sqrt(w[j] @ w[j]))
-        if sf > res.peak_shortfall:
-            res.peak_shortfall, res.peak_shortfall_t = sf, float(block.t[j])
-            res.peak_shortfall_twist = tuple(float(v) for v in block.shortfall[j])
-    low = np.flatnonzero(block.rank < 3)
-    if len(low) and res.underdetermined_t is None:
-        res.underdetermined_t = float(block.t[low[0]])
+    tally.fold(block)
     res.rows = block.k0 + m
     res.final_pose = tuple(float(v) for v in block.pose[-1])
+
+
+def _figures(res: RunResult, tally) -> None:
+    """The run's figures from its tally."""
+    res.distance = tally.distance
+    res.peak_slip, res.peak_slip_t = tally.peak_slip
+    res.underdetermined_t = tally.underdetermined_t
+    proj = tally.kinds.get("projected")
+    if proj is not None:
+        res.peak_shortfall, res.peak_shortfall_t = proj["extreme"], proj["extreme_t"]
+        res.peak_shortfall_twist = tuple(proj["twist"])
 
 
 def summary_text(res: RunResult) -> str:

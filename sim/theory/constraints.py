@@ -33,14 +33,24 @@ from sim.model.robot import FIXED, P_CODE, P_DRIVEN, P_ROLLER, P_X, P_Y, STEERED
 @physics
 def rolling_row(x, y, h, g):
     """Rolling row of a wheel at (x, y) m, heading ``h``, roller angle ``g`` (rad): 3 floats."""
-    c, s = math.cos(h + g), math.sin(h + g)
+    return rolling_row_cs(x, y, math.cos(h + g), math.sin(h + g))
+
+
+@physics
+def rolling_row_cs(x, y, c, s):
+    """:func:`rolling_row` given ``c, s`` = cos, sin of heading + roller angle."""
     return c, s, x * s - y * c
 
 
 @physics
 def sliding_row(x, y, h, trail):
     """No-sliding row of a wheel at (x, y) m, heading ``h`` rad; ``trail`` > 0 m for castors: 3 floats."""
-    c, s = math.cos(h), math.sin(h)
+    return sliding_row_cs(x, y, math.cos(h), math.sin(h), trail)
+
+
+@physics
+def sliding_row_cs(x, y, c, s, trail):
+    """:func:`sliding_row` given ``c, s`` = cos, sin of the heading."""
     return -s, c, x * c + y * s - trail
 
 
@@ -191,12 +201,20 @@ def motion_rows_into(P, heading, A, wheel, rolling):
             A[m, 0], A[m, 1], A[m, 2] = rolling_row(P[P_X, i], P[P_Y, i], heading[i], P[P_ROLLER, i])
             wheel[m], rolling[m] = i, True
             m += 1
+    r = 0                 # the rolling row of wheel i, if it has one
     for i in range(n):
         c = P[P_CODE, i]
         if c == FIXED or c == STEERED:
-            A[m, 0], A[m, 1], A[m, 2] = sliding_row(P[P_X, i], P[P_Y, i], heading[i], 0.0)
+            h = heading[i]
+            if P[P_DRIVEN, i] != 0.0 and P[P_ROLLER, i] == 0.0 and h != 0.0:
+                # its rolling row holds cos h, sin h already (h + 0 is h unless h is -0)
+                A[m, 0], A[m, 1], A[m, 2] = sliding_row_cs(P[P_X, i], P[P_Y, i], A[r, 0], A[r, 1], 0.0)
+            else:
+                A[m, 0], A[m, 1], A[m, 2] = sliding_row(P[P_X, i], P[P_Y, i], h, 0.0)
             wheel[m], rolling[m] = i, False
             m += 1
+        if P[P_DRIVEN, i] != 0.0:
+            r += 1
     return m
 
 

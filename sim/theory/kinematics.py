@@ -280,7 +280,7 @@ def forward(robot: Robot, heading, spin) -> Forward:
     A, wheel, rolling = motion_rows(robot, heading)
     m = len(A)
     Pm = np.empty((3, max(m, 1)))
-    rank = pinv_into(A, m, twist_scale(robot), np.empty((max(m, 1), 3)), Pm)
+    rank = pinv_into(A, m, twist_scale(robot), np.empty((m + 4, 3)), Pm)
     xi, res = np.zeros(3), np.zeros(max(m, 1))
     solve_motion(robot.packed, A, Pm, m, wheel, rolling, np.ascontiguousarray(spin, dtype=float), xi, res)
     return Forward(xi, res[:m].copy(), wheel, rolling, int(rank))
@@ -297,7 +297,7 @@ def forward_matrix(robot: Robot, heading) -> tuple:
     A, wheel, rolling = motion_rows(robot, heading)
     m = len(A)
     Pm = np.empty((3, max(m, 1)))
-    pinv_into(A, m, twist_scale(robot), np.empty((max(m, 1), 3)), Pm)
+    pinv_into(A, m, twist_scale(robot), np.empty((m + 4, 3)), Pm)
     idx = wheel[rolling]
     return Pm[:, : len(idx)] * (a.radius[idx] * np.cos(a.roller[idx]))[None, :], idx
 

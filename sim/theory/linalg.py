@@ -70,10 +70,13 @@ def pinv_into(A, m, scale, W, P):
 
     ``x = P[:, :m] @ b`` minimises ``|A x - b|`` and, among minimisers, ``|x / scale|``;
     singular values below ``RANK_TOL`` x the largest are dropped.  ``W`` is workspace
-    of at least (m, 3).  Returns the rank (0..3).
+    of at least (m + 4, 3) (rows m.. hold V and the singular values: no allocation, as
+    the engine calls this whenever a steered wheel turns).  Returns the rank (0..3).
     """
-    V = np.empty((3, 3))
-    sig = np.empty(3)
+    if W.shape[0] < m + 4:
+        raise ValueError("pinv_into: the workspace W needs m + 4 rows")
+    V = W[m:m + 3]
+    sig = W[m + 3]
     for r in range(m):
         for k in range(3):
             W[r, k] = A[r, k] * scale[k]
@@ -127,7 +130,7 @@ def lstsq_many_into(A, b, scale, out):
     """Minimum-norm least squares (as :func:`pinv_into`) of each of m systems: rows
     ``A`` (m, r, 3), right-hand sides ``b`` (m, r); solutions into ``out`` (m, 3)."""
     r = A.shape[1]
-    W = np.empty((max(r, 1), 3))
+    W = np.empty((r + 4, 3))
     Pm = np.empty((3, max(r, 1)))
     for i in range(A.shape[0]):
         pinv_into(A[i], r, scale, W, Pm)
@@ -145,7 +148,7 @@ def lstsq(A, b, scale=None):
     m = len(A)
     S = np.ones(3) if scale is None else np.asarray(scale, dtype=float)
     P = np.empty((3, max(m, 1)))
-    rank = pinv_into(A, m, S, np.empty((max(m, 1), 3)), P)
+    rank = pinv_into(A, m, S, np.empty((m + 4, 3)), P)
     return P[:, :m] @ np.asarray(b, dtype=float), rank
 
 
@@ -155,7 +158,7 @@ def pinv(A, scale=None):
     m = len(A)
     S = np.ones(3) if scale is None else np.asarray(scale, dtype=float)
     P = np.empty((3, max(m, 1)))
-    rank = pinv_into(A, m, S, np.empty((max(m, 1), 3)), P)
+    rank = pinv_into(A, m, S, np.empty((m + 4, 3)), P)
     return P[:, :m].copy(), rank
 
 
