@@ -144,7 +144,7 @@ class ClosedLoop:
         return Block(k0, out[:m], sim.n)
 
     # -- blocks for the runner --------------------------------------------------------------
-    def blocks(self, block_rows: int = 8192):
+    def blocks(self, block_rows: int = 2048):
         """Yield (Block, extra (m, len(odo columns) + 4)) covering the run.  Between script
         entries each stretch runs in compiled code: under a plan the tracking law and the
         engine's step together (:meth:`Simulator.advance_tracking`), open loop the engine alone."""

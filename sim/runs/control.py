@@ -252,7 +252,7 @@ class PeriodDriver(Driver):
         return Decision(cmd, self.period)
 
 
-def controlled_blocks(scen, odo, driver, on_row=None, block_rows: int = 8192):
+def controlled_blocks(scen, odo, driver, on_row=None, block_rows: int = 2048):
     """The rows of a run decided by ``driver``, as ``(Block, extra)`` pieces.
 
     Each decision's stretch runs as one compiled stretch
