@@ -354,6 +354,29 @@ def test_command_log_replay_equals_script(tmp_path, scenario_from_yaml):
     assert np.nanmax(np.abs(a["omega"])) == pytest.approx(0.4)
 
 
+def test_dense_command_logs_equal_scripts_byte_for_byte(tmp_path, scenario_from_yaml):
+    # A log runs in compiled blocks with its commands applied as their steps come; a script runs
+    # a stretch per entry.  Commands every step, between steps, and two on one step (the later holds).
+    rng = np.random.default_rng(5)
+    robot = pathlib.Path(__file__).resolve().parents[1] / "scenarios" / "robots" / "quad-steer.yaml"
+    head = f"robot: {robot}\nstep: 0.01\nduration: 3\n"
+    t = np.round(np.concatenate([np.arange(0, 1.5, 0.01), [1.503, 1.507, 1.52, 2.0, 2.505]]), 3)
+    names = ["front_left", "rear_right"]
+    vals = np.round(rng.uniform(-3, 3, (len(t), 4)), 3)
+    (tmp_path / "w.csv").write_text("t," + ",".join(f"{n}.spin,{n}.steer" for n in names) + "\n"
+                                    + "".join(f"{a}," + ",".join(map(str, v)) + "\n" for a, v in zip(t, vals)))
+    script = "".join(f"  - {{at: {a}, wheels: {{{names[0]}: {{spin: {v[0]}, steer: {v[1]}}}, "
+                     f"{names[1]}: {{spin: {v[2]}, steer: {v[3]}}}}}}}\n" for a, v in zip(t, vals))
+    tw = np.round(rng.uniform(-0.5, 0.5, (len(t), 2)), 3)
+    (tmp_path / "t.csv").write_text("t,vy,omega\n" + "".join(f"{a},{v[0]},{v[1]}\n" for a, v in zip(t, tw)))
+    twist = "".join(f"  - {{at: {a}, twist: {{vx: 0, vy: {v[0]}, omega: {v[1]}}}}}\n" for a, v in zip(t, tw))
+    for log, text in (("w.csv", script), ("t.csv", twist)):
+        a = run_scenario(scenario_from_yaml(tmp_path, head + f"commands: {log}\n", "log.yaml"), keep=True).trace
+        b = run_scenario(scenario_from_yaml(tmp_path, head + "script:\n" + text, "script.yaml"), keep=True).trace
+        assert list(a) == list(b) and len(a["t"]) == 301
+        assert all(a[c].tobytes() == b[c].tobytes() for c in a), log
+
+
 def test_run_json_is_the_summary(cli, tmp_path):
     scen = pathlib.Path(__file__).resolve().parents[1] / "scenarios" / "field-rover-skid-turn.yaml"
     code, out, err = cli(["run", scen, "--json", "--csv", tmp_path / "f.csv"])

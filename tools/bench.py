@@ -43,6 +43,8 @@ times; the table shows the median.  Cases:
 15. ``trundle diff`` of two million-row traces (the two-castor cart of case 3): identical, and
     every row differing (the second run's right wheel 0.1 um larger), as CSV and as Parquet;
     wall time and peak memory.
+16. a command log with a command for every step: the ward cart replaying a 1 kHz log of
+    wheel commands (200,001 rows, read before timing), 200 s at dt 1 ms, no CSV;
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.  CPU seconds are worth a look on a shared machine, where wall
@@ -56,6 +58,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import platform
 import random
@@ -105,6 +108,13 @@ def _write_cases(folder: str, duration: float = 1000.0) -> None:
         fh.write('{"type": "FeatureCollection", "features": [\n' + walls + "\n]}\n")
     with open(os.path.join(folder, "weave.yaml"), "w") as fh:
         fh.write("\n".join(lines) + "\n")
+    log = ["t,left.spin,right.spin"] + [f"{k / 1000:g},{3 + 2 * math.sin(k / 700):.6f},{3 + 2 * math.cos(k / 500):.6f}"
+                                         for k in range(200_001)]
+    with open(os.path.join(folder, "dense-log.csv"), "w") as fh:
+        fh.write("\n".join(log) + "\n")
+    with open(os.path.join(folder, "dense.yaml"), "w") as fh:
+        fh.write(f"robot: {os.path.join(ROBOTS, 'ward-cart.yaml')}\nstep: 0.001\nduration: 200\n"
+                 "commands: dense-log.csv\n")
     batch = os.path.join(folder, "batch")
     os.makedirs(batch, exist_ok=True)
     names = ["ward-cart", "tote-mecanum", "quad-steer", "greenhouse-rover", "camera-dolly"]
@@ -218,8 +228,8 @@ def _one(case: str, folder: str, root: str = ROOT) -> dict:
             out["csv_mb"] = os.path.getsize(csv) / 1e6
             os.remove(csv)
         return out
-    if case == "3":
-        scen = load_scenario(os.path.join(folder, "castors.yaml"))
+    if case in ("3", "16"):
+        scen = load_scenario(os.path.join(folder, "castors.yaml" if case == "3" else "dense.yaml"))
         _warm(scen)
         t = time.perf_counter()
         res = run_scenario(scen)
@@ -551,7 +561,7 @@ def main(argv=None) -> int:
         return 0
     skip = set(filter(None, args.skip.split(",")))
     if args.only:
-        skip = {str(c) for c in range(1, 16)} - set(args.only.split(","))
+        skip = {str(c) for c in range(1, 17)} - set(args.only.split(","))
     extra = []
     rows = []
     with tempfile.TemporaryDirectory(prefix="trundle-bench-") as folder:
@@ -559,7 +569,8 @@ def main(argv=None) -> int:
         med = lambda xs: statistics.median(xs)
         for case, label in (("1", "steered base, 1e6 steps, no CSV (steady)"),
                             ("2", "steered base, 1e6 steps, CSV every step (steady)"),
-                            ("3", "diff drive + castors, 1e6 steps (steady)")):
+                            ("3", "diff drive + castors, 1e6 steps (steady)"),
+                            ("16", "command log, a command every step, 2e5 steps")):
             if case in skip:
                 continue
             runs = [_sub(case, folder, root=root) for _ in range(args.repeat)]

@@ -37,6 +37,16 @@ def _whole_rate(dt: float) -> float:
     return float(rate) if rate >= 1 and abs(1.0 / dt - rate) <= 1e-9 * rate else 0.0
 
 
+class Timed:
+    """Commands given ahead (:meth:`Simulator.timed`): ``steps`` (R,) int, ``twist`` bool,
+    ``which``/``wheel`` (C,) int (wheel logs), ``values`` (R, 3 or C), and ``next``, the
+    first row not yet applied."""
+
+    def __init__(self, steps, twist, which, wheel, values):
+        self.steps, self.twist, self.which, self.wheel, self.values = steps, twist, which, wheel, values
+        self.next = 0
+
+
 class Simulator:
     """A base in the plane, advanced one fixed step at a time or many at once.
 
@@ -183,11 +193,45 @@ class Simulator:
         for row, i, v in updates:
             if not math.isfinite(v):
                 raise ValueError(f"wheel commands must be finite, got {v}")
-        if g[K.G_MODE] == K.MODE_TWIST:
-            g[K.G_MODE] = K.MODE_WHEELS
-            g[K.G_CMD:K.G_CMD + 3] = 0.0
-        for row, i, v in updates:
-            S[row, i] = v
+        K.set_wheels(S, g, np.array([u[0] for u in updates], dtype=np.int64),
+                     np.array([u[1] for u in updates], dtype=np.int64), np.array([u[2] for u in updates], dtype=float))
+
+    def timed(self, kind: str, columns, steps, values) -> "Timed":
+        """Commands given ahead, for :meth:`advance_timed`: row i of ``values`` (R, C) takes
+        effect at step ``steps[i]`` (R,) (increasing).  ``kind`` ``twist``: columns among
+        vx, vy, omega (m/s, rad/s; a missing one is 0); ``wheels``: columns ``NAME.spin``
+        (rad/s) / ``NAME.steer`` (rad) of driven / steered wheels.  Values must be finite."""
+        values = np.ascontiguousarray(values, dtype=float)
+        if not np.isfinite(values).all():
+            raise ValueError("timed commands must be finite")
+        steps = np.ascontiguousarray(steps, dtype=np.int64)
+        if kind == "twist":
+            full = np.zeros((len(values), 3))
+            for c, name in enumerate(columns):
+                full[:, ("vx", "vy", "omega").index(name)] = values[:, c]
+            return Timed(steps, True, np.zeros(0, np.int64), np.zeros(0, np.int64), full)
+        if kind != "wheels":
+            raise ValueError(f"timed commands are twist or wheels, got {kind!r}")
+        which, wheel = [], []
+        for c in columns:
+            name, _, part = c.partition(".")
+            i = self.robot.index.get(name)
+            ok = i is not None and ((part == "spin" and self._driven[i]) or (part == "steer" and self._steered[i]))
+            if not ok:
+                raise ValueError(f"column {c!r}: a driven wheel's NAME.spin or a steered wheel's NAME.steer")
+            which.append(K.SPIN_CMD if part == "spin" else K.STEER_CMD)
+            wheel.append(i)
+        return Timed(steps, False, np.array(which, np.int64), np.array(wheel, np.int64), values)
+
+    def advance_timed(self, m: int, timed: "Timed", out: np.ndarray | None = None) -> Block:
+        """Run ``m`` steps, applying the commands of ``timed`` as their steps come, in compiled
+        code; returns the rows as a :class:`Block` (written into ``out`` (m, width) when given)."""
+        k0 = self.k
+        if out is None:
+            out = np.empty((m, self.width))
+        timed.next = K.run_timed(*self._args, out, timed.steps, timed.twist, timed.which, timed.wheel,
+                                 timed.values, timed.next)
+        return Block(k0, out, self.n)
 
     def command(self, kind: str, value=None) -> None:
         """A command by kind: ``twist`` (value (3,)), ``wheels`` (value {name: ...}) or ``stop``."""

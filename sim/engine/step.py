@@ -267,6 +267,36 @@ def set_twist(g, vx, vy, w):
 
 
 @kernel
+def set_wheels(S, g, which, wheel, values):
+    """Wheel commands from now on: ``S[which[c], wheel[c]] = values[c]`` for each given
+    command c (``which`` is ``SPIN_CMD`` (rad/s) or ``STEER_CMD`` (rad)); the others keep
+    theirs, and a twist command in force ends."""
+    if g[G_MODE] == MODE_TWIST:
+        g[G_MODE] = MODE_WHEELS
+        g[G_CMD], g[G_CMD + 1], g[G_CMD + 2] = 0.0, 0.0, 0.0
+    for c in range(which.shape[0]):
+        S[which[c], wheel[c]] = values[c]
+
+
+@kernel
+def run_timed(P, S, g, A, Pm, rows, Wk, out, at, twist, which, wheel, values, r):
+    """``len(out)`` steps under commands given ahead (a command log): row ``i`` of ``values``
+    (R, 3) twists (vx, vy, omega) when ``twist``, else (R, C) wheel commands as in
+    :func:`set_wheels`, takes effect at step ``at[i]`` (R,) int, in order.  ``r`` is the
+    first row not yet applied; returns the next one."""
+    for j in range(out.shape[0]):
+        k = g[G_K]
+        while r < at.shape[0] and at[r] <= k:
+            if twist:
+                set_twist(g, values[r, 0], values[r, 1], values[r, 2])
+            else:
+                set_wheels(S, g, which, wheel, values[r])
+            r += 1
+        step_into(P, S, g, A, Pm, rows, Wk, out[j])
+    return r
+
+
+@kernel
 def run_stretch(P, S, g, A, Pm, rows, Wk, out):
     """``len(out)`` steps under the commands in force; row j of ``out`` (m, width) is row k + j."""
     for j in range(out.shape[0]):

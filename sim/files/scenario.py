@@ -96,7 +96,11 @@ class Scenario:
     @property
     def closed_loop(self) -> bool:
         """Whether a controller drives the base (a route, goto entries or world-frame twists)."""
-        return self.route is not None or any(c.kind in ("goto", "world_twist") for c in self.script)
+        if self.route is not None:
+            return True
+        if isinstance(self.script, CommandLog):       # twist or wheel commands only
+            return False
+        return any(c.kind in ("goto", "world_twist") for c in self.script)
 
     @property
     def control_steps(self) -> int:

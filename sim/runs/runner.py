@@ -14,6 +14,7 @@ import numpy as np
 from sim.engine.notes import Tally
 from sim.engine.record import Block, columns
 from sim.engine.simulator import Simulator
+from sim.files.commandlog import CommandLog
 from sim.files.scenario import Scenario
 from sim.files.text import fixed
 from sim.theory.se2 import wrap
@@ -235,15 +236,24 @@ class _Checks:
 
 def entry_steps(script, dt: float) -> list:
     """Step index at which each script entry takes effect: the first k with k dt >= at."""
-    out = []
-    for c in script:
-        k = max(0, math.ceil(c.at / dt - 1e-9))
-        while k * dt + 1e-9 * dt < c.at:
-            k += 1
-        while k > 0 and (k - 1) * dt + 1e-9 * dt >= c.at:
-            k -= 1
-        out.append(k)
-    return out
+    at = script.t if isinstance(script, CommandLog) else np.array([c.at for c in script], dtype=float)
+    return steps_at(at, dt).tolist()
+
+
+def steps_at(at: np.ndarray, dt: float) -> np.ndarray:
+    """The first step k (int, (R,)) with k dt >= at, for times ``at`` (R,) s (within 1e-9 dt)."""
+    k = np.maximum(0.0, np.ceil(at / dt - 1e-9))
+    while True:
+        up = k * dt + 1e-9 * dt < at
+        if not up.any():
+            break
+        k[up] += 1.0
+    while True:
+        down = (k > 0) & ((k - 1.0) * dt + 1e-9 * dt >= at)
+        if not down.any():
+            break
+        k[down] -= 1.0
+    return k.astype(np.int64)
 
 
 def _segments(scen: Scenario, chunk: int):
@@ -270,7 +280,9 @@ def simulator_for(scen: Scenario) -> Simulator:
 
 def _blocks(scen, odo, on_row):
     """Blocks of up to CHUNK rows.  Each script segment runs as a compiled stretch; short
-    segments fill one block together, so the summary and the writer see few, large blocks."""
+    segments fill one block together, so the summary and the writer see few, large blocks.
+    A command log runs whole blocks in compiled code, its commands applied as their steps
+    come (a log may hold a command for every step)."""
     sim = simulator_for(scen)
     buf = np.empty((min(CHUNK, max(scen.steps, 1)), sim.width))  # reused: each block is consumed before the next
     fill, start = 0, 0
@@ -282,6 +294,14 @@ def _blocks(scen, odo, on_row):
                 on_row(block.row(i))
         return block, (odo.update_block(block) if odo else None)
 
+    log = scen.script
+    if isinstance(log, CommandLog):
+        timed = sim.timed(log.kind, log.columns, steps_at(log.t, scen.step), log.values)
+        for start in range(0, scen.steps, len(buf)):
+            m = min(len(buf), scen.steps - start)
+            sim.advance_timed(m, timed, out=buf[:m])
+            yield done(m)
+        return
     for k0, m, todo in _segments(scen, CHUNK):
         if fill + m > len(buf):
             yield done(fill)
