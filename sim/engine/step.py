@@ -98,7 +98,7 @@ _W_LONG, _W_LAT, _W_ANGLE = WHEEL["slip_long"], WHEEL["slip_lat"], WHEEL["angle"
 _W_TO_GO, _W_LIMIT = WHEEL["to_go"], WHEEL["at_limit"]
 
 
-@kernel
+@kernel(inline=True)
 def step_into(P, S, g, A, Pm, rows, Wk, out):
     """One step (module docstring); writes row k into ``out`` (width,) and advances the state."""
     n = P.shape[1]
