@@ -38,7 +38,7 @@ import math
 import os
 import sys
 from dataclasses import dataclass
-from typing import Protocol, runtime_checkable
+from typing import NamedTuple, Protocol, runtime_checkable
 
 import numpy as np
 
@@ -187,27 +187,33 @@ class Sensors:
         self.resolution = np.array([robot.wheels[i].steer_resolution or 0.0 for i in self.steer_idx])
         self.rounded = bool(np.any(self.resolution > 0))
 
-    def observe(self) -> Observation:
+    def readings(self) -> tuple:
+        """The values of :meth:`observe` as plain lists, in the order of :attr:`measured`
+        and :attr:`steered`: ``(counts, steer, pose or None)``.  Counts are whole
+        numbers held as floats; the server formats its replies from these."""
         sim = self.sim
         if self.settle is not None:
             self.settle()
-        counts = {}
-        if self.reader is not None:
-            counts = dict(zip(self.measured, map(int, self.reader.reading(sim.angle).tolist())))
-        steer = {}
+        counts = self.reader.reading(sim.angle).tolist() if self.reader is not None else []
+        steer = []
         if self.steered:
             vals = sim.heading[self.steer_idx]
             if self.rounded:
                 vals = steer_reading(vals, self.resolution)
-            steer = dict(zip(self.steered, vals.tolist()))
-        pose = tuple(sim.pose.tolist()) if self.truth else None
-        return Observation(sim.t, counts, steer, pose)
+            steer = vals.tolist()
+        pose = sim.pose.tolist() if self.truth else None
+        return counts, steer, pose
+
+    def observe(self) -> Observation:
+        counts, steer, pose = self.readings()
+        return Observation(self.sim.t, dict(zip(self.measured, map(int, counts))), dict(zip(self.steered, steer)),
+                           tuple(pose) if pose is not None else None)
 
 
-@dataclass(frozen=True)
-class Decision:
+class Decision(NamedTuple):
     """Apply ``command`` (None: keep the current one) at row k and hold it for ``steps`` rows;
-    ``extra`` gives the driver's own trace columns for those rows."""
+    ``extra`` gives the driver's own trace columns for those rows.  (A named tuple: one is
+    made per decision, so it is kept cheap.)"""
 
     command: Command | None = None
     steps: int = 1
@@ -256,12 +262,15 @@ def controlled_blocks(scen, odo, driver, on_row=None, block_rows: int = 2048):
     """The rows of a run decided by ``driver``, as ``(Block, extra)`` pieces.
 
     Each decision's stretch runs as one compiled stretch
-    (:meth:`~sim.engine.simulator.Simulator.advance`) into a buffer that is
-    handed on when full, before a reading that needs the odometer up to date,
-    and at the end; each piece is consumed before the buffer is written again.
-    ``extra`` (m, ncols) holds the odometry columns (when ``odo``) and then the
-    driver's ``columns``, or is None when there are none.  The run ends at
-    ``scen.steps`` rows or when the driver returns None.
+    (:meth:`~sim.engine.simulator.Simulator.advance`) into a buffer of
+    ``block_rows`` rows that is handed on when full and at the end, so the
+    trace writer and the summary take whole blocks however short the
+    decisions are; each piece is consumed before the buffer is written again.
+    A reading that needs the odometer up to date (random count errors) feeds
+    it the rows made since the last one, in place.  ``extra`` (m, ncols) holds
+    the odometry columns (when ``odo``) and then the driver's ``columns``, or
+    is None when there are none.  The run ends at ``scen.steps`` rows or when
+    the driver returns None.
     """
     sim = Simulator(scen.robot, scen.step, scen.start, scen.align, scen.align_tolerance, skid=scen.skid)
     ncols = len(driver.columns)
@@ -269,39 +278,44 @@ def controlled_blocks(scen, odo, driver, on_row=None, block_rows: int = 2048):
     size = min(block_rows, max(n, 1))
     buf = np.empty((size, sim.width))
     ebuf = np.empty((size, ncols))
-    ready = []
-    fill, k0 = 0, 0
-
-    def piece():
-        nonlocal fill, k0
-        block = Block(k0, buf[:fill], sim.n)
-        parts = [odo.update_block(block)] if odo is not None else []
-        if ncols:
-            parts.append(ebuf[:fill].copy())
-        out = (block, np.hstack(parts) if parts else None)
-        k0 += fill
-        fill = 0
-        return out
+    obuf = np.empty((size, len(odo.columns))) if odo is not None else None
+    fill, k0, odone = 0, 0, 0       # rows in buf; row index of buf[0]; rows the odometer has seen
 
     def settle():
-        if fill:
-            ready.append(piece())
+        nonlocal odone
+        if fill > odone:
+            obuf[odone:fill] = odo.update_block(Block(k0 + odone, buf[odone:fill], sim.n))
+            odone = fill
+
+    def piece():
+        nonlocal fill, k0, odone
+        block = Block(k0, buf[:fill], sim.n)
+        parts = []
+        if odo is not None:
+            settle()
+            parts.append(obuf[:fill])
+        if ncols:
+            parts.append(ebuf[:fill])
+        out = (block, np.hstack(parts) if parts else None)
+        k0 += fill
+        fill = odone = 0
+        return out
 
     sensors = Sensors(scen, sim, odo, settle)
+    command, advance = sim.command, sim.advance
     k = 0
     try:
         while k < n:
             d = driver.decide(k, n - 1 - k, sensors)
-            yield from ready
-            ready.clear()
             if d is None:        # the driver ends the run: row k is the last
                 n, d = k + 1, Decision(extra=driver.final_extra())
-            if d.command is not None:      # None keeps the current command
-                sim.command(d.command.kind, d.command.value)
+            cmd = d.command
+            if cmd is not None:      # None keeps the current command
+                command(cmd.kind, cmd.value)
             todo = max(1, min(int(d.steps), n - k))
             while todo:
                 m = min(todo, size - fill)
-                block = sim.advance(m, out=buf[fill:fill + m])
+                block = advance(m, out=buf[fill:fill + m])
                 if ncols:
                     ebuf[fill:fill + m] = d.extra
                 if on_row is not None:
