@@ -310,3 +310,90 @@ def test_serve_option_errors(tmp_path, cli, expect_input_error, args, where, fra
     code, out, err = cli(["serve", EXAMPLES / "square.yaml", *args])
     expect_input_error(code, err, where, None, fragment)
     assert out == ""
+
+
+# ---- the lean per-message path gives what the general one gives -------------------------------------
+
+PLAIN = [   # (line, taken by the plain-twist reader)
+    (b'{"twist": [0.3, 0.0, 0.2], "steps": 1}', True),
+    (b'{"twist":[0.3,0,-0.5]}', True),
+    (b' \t{ "twist" : [ -0 , -0.0 , -0e0 ] , "steps" : 12 } \r', True),   # json: int -0 is 0, float -0.0 stays
+    (b'{"twist": [1E1, 2.5e-3, -100], "steps": 3}', True),
+    (b'{"twist": [100, -100, 100.0]}', True),                           # on the bounds: allowed
+    (b'{"twist": [5e-324, 0, -1e-400]}', True),
+    (b'{"twist": [100.00000000001, 0, 0]}', False),                     # beyond: the general reader names it
+    (b'{"twist": [1e999, 0, 0]}', False),
+    (b'{"twist": [01, 0, 0]}', False),                                  # not JSON
+    (b'{"twist": [.5, 0, 0]}', False),
+    (b'{"twist": [0.5, 0, 0], "steps": 0}', False),
+    (b'{"twist": [0.5, 0, 0], "steps": 2.0}', False),
+    (b'{"steps": 2, "twist": [0.5, 0, 0]}', False),                     # other key order: general reader
+    (b'{"twist": [0.5, 0, 0], "twist": [0.1, 0, 0]}', False),
+    (b'{"tw\\u0069st": [0.5, 0, 0]}', False),
+]
+
+
+def _general(line, robot):
+    from sim.runs.control import CommandError
+    from sim.runs.serve import parse_json_message
+    try:
+        return parse_json_message(line, robot)
+    except CommandError as exc:
+        return str(exc)
+
+
+@pytest.mark.parametrize("line,plain", PLAIN)
+def test_plain_twist_lines_read_as_the_json_decoder_reads_them(line, plain):
+    # reference: the standard library's JSON decoder (through the general reader)
+    from sim.files.robotfile import load_robot
+    from sim.runs.serve import plain_twist
+    robot = load_robot(CART)
+    got, want = plain_twist(line), _general(line, robot)
+    assert (got is not None) == plain
+    if plain:   # the same values to the bit, signed zeros included
+        assert got == want
+        assert [math.copysign(1, v) for v in got[1].value] == [math.copysign(1, v) for v in want[1].value]
+
+
+def test_replies_are_the_json_encoders_bytes(tmp_path):
+    # reference: json.dumps of the observation (compact separators) for every reply form
+    from sim.engine.simulator import Simulator
+    from sim.runs.control import Sensors
+    from sim.runs.serve import Replies
+    for truth in (False, True):
+        scen = _scenario(tmp_path, f"duration: 1\nobserve_truth: {str(truth).lower()}\n")
+        sim = Simulator(scen.robot, scen.step, scen.start)
+        sensors = Sensors(scen, sim)
+        replies = Replies(sensors)
+        for k, twist in enumerate([(0.4, 0, 0.7), (0.1, 0, -1.3), (0, 0, 0.3)]):
+            sim.command_twist(twist)
+            sim.advance(7 * k + 1)
+            obs = sensors.observe()
+            for end, wd in ((False, False), (True, False), (False, True)):
+                d = {"t": obs.t, "counts": obs.counts, "steer": obs.steer}
+                if truth:
+                    d["pose"] = list(obs.pose)
+                if end:
+                    d["end"] = True
+                if wd:
+                    d["watchdog"] = True
+                want = (json.dumps(d, separators=(",", ":")) + "\n").encode()
+                assert replies.observation(sim.k, end, wd) == want
+
+
+def test_link_splits_lines_however_they_arrive():
+    from sim.runs.serve import MAX_LINE, Link
+    link = Link("127.0.0.1", 0)
+    try:
+        host, port = link.address.rsplit(":", 1)
+        c = socket.create_connection((host, int(port)))
+        link.accept_first()
+        for part in (b'{"a"', b':1}\r\n\n  \n{"b":2}\n{"c"', b":3}\n" + b"x" * (MAX_LINE + 10), b"yy\n{\"d\":4}\n"):
+            c.sendall(part)
+            time.sleep(0.05)
+        got = [link.next_line() for _ in range(5)]
+        assert got == [b'{"a":1}', b'{"b":2}', b'{"c":3}', None, b'{"d":4}']   # None: answered "too long"
+        c.close()
+        assert link.next_line() is ...                                        # gone
+    finally:
+        link.close()

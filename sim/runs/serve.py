@@ -20,21 +20,32 @@ Two clocks:
   seconds of run time.
 
 A bad line never ends the run: it is answered with ``{"error": "..."}`` and the
-state is unchanged.  Sockets are handled with :mod:`selectors`.
+state is unchanged.  Sockets are waited on with :func:`select.poll`.
+
+The per-message path is kept lean, since in lockstep a client's speed is the
+round trip: lines are received into one reused buffer; a well-formed twist
+line is read by one strict regular expression (anything it does not match
+exactly, errors included, goes through the full JSON parse, so the answers are
+the same); each distinct line is checked once; the reply is formatted from the
+sensor readings into a template made at the start (byte for byte what the JSON
+encoder gives, see :class:`Replies`).
 """
 from __future__ import annotations
 
 import json
 import math
-import selectors
+import re
+import select
 import socket
 import statistics
 import time
+from collections import deque
 
 from sim.engine.simulator import step_times
 from sim.errors import InputError
 from sim.files.scenario import Command
-from sim.runs.control import CommandError, Decision, Driver, parse_twist, parse_wheels
+from sim.runs.control import (MAX_RATE, MAX_SPEED, CommandError, Decision, Driver, Observation, parse_twist,
+                              parse_wheels)
 from sim.runs.runner import run_scenario
 
 PROTOCOL = 1
@@ -67,11 +78,48 @@ def _dumps(obj) -> bytes:
     return (_ENCODER.encode(obj) + "\n").encode("utf-8")
 
 
+# A twist line in its plainest form, e.g. {"twist": [0.3, 0, -0.5], "steps": 2}: JSON
+# numbers (RFC 8259 grammar) and JSON white space only, keys in this order, once each.
+_WS = rb"[ \t\r\n]*"
+_NUM = rb"(-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][-+]?[0-9]+)?)"
+_TWIST_LINE = re.compile(
+    _WS + rb'\{' + _WS + rb'"twist"' + _WS + rb':' + _WS + rb'\[' + _WS + _NUM + _WS + rb',' + _WS + _NUM + _WS
+    + rb',' + _WS + _NUM + _WS + rb'\]' + rb'(?:' + _WS + rb',' + _WS + rb'"steps"' + _WS + rb':' + _WS
+    + rb'([1-9][0-9]{0,17}))?' + _WS + rb'\}' + _WS)
+
+
+def _json_number(token: bytes, value: float) -> float:
+    """The float json's reading of ``token`` gives (its integers via int): ``value``
+    except for the integer -0, read as 0 (not -0.0)."""
+    return 0.0 if value == 0.0 and token.lstrip(b"-").isdigit() else value
+
+
+def plain_twist(line: bytes):
+    """The twist line ``line`` as ``("go", Command, steps)`` when it is in the plainest
+    form and every value is within bounds; None otherwise (:func:`parse_json_message`
+    decides).  Where both answer they give the same result (tests/test_serve.py checks it)."""
+    m = _TWIST_LINE.fullmatch(line)
+    if m is None:
+        return None
+    a, b, c, steps = m.groups()
+    vx, vy, w = float(a), float(b), float(c)
+    if not (-MAX_SPEED <= vx <= MAX_SPEED and -MAX_SPEED <= vy <= MAX_SPEED and -MAX_RATE <= w <= MAX_RATE):
+        return None               # out of bounds, infinite or too long: the full parse names it
+    if vx == 0.0 or vy == 0.0 or w == 0.0:
+        vx, vy, w = _json_number(a, vx), _json_number(b, vy), _json_number(c, w)
+    return "go", Command(0.0, "twist", (vx, vy, w)), int(steps) if steps is not None else 1
+
+
 def parse_message(line: bytes, robot):
     """One client line -> ``("bye", None, 0)`` or ``("go", command or None, steps)``.
 
     Raises :class:`~sim.runs.control.CommandError` naming the problem and what is allowed.
     """
+    return plain_twist(line) or parse_json_message(line, robot)
+
+
+def parse_json_message(line: bytes, robot):
+    """:func:`parse_message` through the JSON decoder: every message, every error."""
     try:
         text = line.decode("utf-8")
     except UnicodeDecodeError:
@@ -110,6 +158,9 @@ def parse_message(line: bytes, robot):
     return "go", cmd, steps
 
 
+BUFFER = MAX_LINE + 65536 + 2   # bytes; what is not yet a whole line is at most MAX_LINE of it
+
+
 class Link:
     """The listening socket and the one connected client, read line by line.
 
@@ -135,23 +186,25 @@ class Link:
         self.server.setblocking(False)
         h, p = self.server.getsockname()[:2]
         self.address = f"[{h}]:{p}" if ":" in h else f"{h}:{p}"
-        self.sel = selectors.DefaultSelector()
-        self.sel.register(self.server, selectors.EVENT_READ)
+        self.poller = select.poll()
+        self.server_fd = self.server.fileno()
+        self.poller.register(self.server_fd, select.POLLIN)
         self.client = None
+        self.client_fd = -1
         self.peer = ""
         self.gone = False          # the client closed or reset the connection
-        self.buf = bytearray()
+        self.buf = bytearray(BUFFER)   # received bytes: buf[start:end] is not yet handled
+        self.view = memoryview(self.buf)
+        self.start = self.end = self.scan = 0   # scan: where the search for a newline resumes
         self.skipping = False      # dropping the rest of an over-long line
-        self.lines = []            # complete lines not yet handled
+        self.lines = deque()       # complete lines not yet handled
         self.sent_at = 0.0         # monotonic time of the last message sent
         self.turned_away = 0
 
     def accept_first(self) -> str:
         """Block until the first client connects; returns its address."""
         while self.client is None:
-            for key, _ in self.sel.select():
-                if key.fileobj is self.server:
-                    self._accept()
+            self.poll(None)
         return self.peer
 
     def _accept(self) -> None:
@@ -173,14 +226,20 @@ class Link:
         conn.setblocking(True)
         conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
         self.client = conn
+        self.client_fd = conn.fileno()
         self.peer = f"{addr[0]}:{addr[1]}"
-        self.sel.register(conn, selectors.EVENT_READ)
+        self.poller.register(self.client_fd, select.POLLIN)
 
     def send(self, obj) -> None:
+        """Send one message (a JSON-able object)."""
+        self.send_bytes(_dumps(obj))
+
+    def send_bytes(self, data: bytes) -> None:
+        """Send one encoded message line."""
         if self.gone or self.client is None:
             return
         try:
-            self.client.sendall(_dumps(obj))
+            self.client.sendall(data)
         except OSError:
             self._lost()
             return
@@ -190,51 +249,67 @@ class Link:
         if not self.gone:
             self.gone = True
             if self.client is not None:
-                self.sel.unregister(self.client)
+                self.poller.unregister(self.client_fd)
 
     def poll(self, timeout: float | None) -> None:
         """Wait up to ``timeout`` s (None: until something happens) for input; new
         complete lines go to :attr:`lines`."""
-        for key, _ in self.sel.select(timeout):
-            if key.fileobj is self.server:
+        ms = -1 if timeout is None else math.ceil(timeout * 1000.0)
+        for fd, _ in self.poller.poll(ms):
+            if fd == self.server_fd:
                 self._accept()
-                continue
-            try:
-                data = self.client.recv(65536)
-            except (BlockingIOError, InterruptedError):
-                continue
-            except OSError:
-                data = b""
-            if not data:
-                self._lost()
-                continue
-            self._take(data)
+            elif fd == self.client_fd and not self.gone:
+                self._receive()
 
-    def _take(self, data: bytes) -> None:
-        self.buf += data
+    def _receive(self) -> None:
+        try:
+            n = self.client.recv_into(self.view[self.end:])
+        except (BlockingIOError, InterruptedError):
+            return
+        except OSError:
+            n = 0
+        if not n:
+            self._lost()
+            return
+        self.end += n
+        self._split()
+
+    def _split(self) -> None:
+        """Whole lines of buf[start:end] to :attr:`lines` (blank ones dropped, over-long
+        ones as None); keeps the unfinished rest."""
+        buf, lines = self.buf, self.lines
         while True:
-            i = self.buf.find(b"\n")
+            i = buf.find(b"\n", self.scan, self.end)
             if i < 0:
-                if len(self.buf) > MAX_LINE:
-                    if not self.skipping:
-                        self.lines.append(None)   # over-long: answered with an error
-                    self.skipping = True
-                    self.buf.clear()
-                return
-            line = bytes(self.buf[:i]).rstrip(b"\r")
-            del self.buf[:i + 1]
+                break
+            line = bytes(self.view[self.start:i]).rstrip(b"\r")
+            self.start = self.scan = i + 1
             if self.skipping:
                 self.skipping = False
-                continue
-            if len(line) > MAX_LINE:
-                self.lines.append(None)
+            elif len(line) > MAX_LINE:
+                lines.append(None)
             elif line.strip():
-                self.lines.append(line)
+                lines.append(line)
+        self.scan = self.end
+        rest = self.end - self.start
+        if rest > MAX_LINE:            # no end in sight: answer once, drop it up to its newline
+            if not self.skipping:
+                lines.append(None)
+            self.skipping = True
+            rest = 0
+        if rest == 0:
+            self.start = self.end = self.scan = 0
+        elif self.end > BUFFER - 65536:
+            buf[:rest] = buf[self.start:self.end]
+            self.start, self.end, self.scan = 0, rest, rest
 
     def next_line(self, deadline: float | None = None):
         """The next line (bytes; None for an over-long one), or ``...`` when the client is
         gone or the deadline (monotonic s) passes first."""
-        while not self.lines:
+        lines = self.lines
+        if lines:
+            return lines.popleft()
+        while not lines:
             if self.gone:
                 return ...
             if deadline is None:
@@ -242,9 +317,9 @@ class Link:
                 continue
             left = deadline - time.monotonic()
             self.poll(max(left, 0.0))
-            if not self.lines and left <= 0:
+            if not lines and left <= 0:
                 return ...
-        return self.lines.pop(0)
+        return lines.popleft()
 
     def close(self) -> None:
         if self.client is not None:
@@ -252,7 +327,6 @@ class Link:
                 self.client.close()
             except OSError:
                 pass
-        self.sel.close()
         self.server.close()
 
 
@@ -263,6 +337,60 @@ def _obs_json(obs, end: bool = False) -> dict:
     if end:
         d["end"] = True
     return d
+
+
+class Replies:
+    """Observation replies, ``{"t":..,"counts":{..},"steer":{..}}`` (plus ``"pose"``,
+    ``"end"``, ``"watchdog"``), formatted from :meth:`~sim.runs.control.Sensors.readings`
+    into a template made once.
+
+    The bytes are those of the JSON encoder on :func:`_obs_json` (compact
+    separators; floats as ``repr``, which is what the encoder writes; names
+    encoded by it): the template only saves building a dict and walking it
+    for every reply.  Values that are not finite go through the encoder, which
+    refuses them as it always did.
+    """
+
+    def __init__(self, sensors):
+        self.sensors = sensors
+        self.dt = sensors.sim.dt
+
+        def key(name):
+            return json.dumps(name).replace("%", "%%")
+
+        counts = ",".join(f"{key(n)}:%d" for n in sensors.measured)
+        steer = ",".join(f"{key(n)}:%r" for n in sensors.steered)
+        self.template = '{"t":%r,"counts":{' + counts + '},"steer":{' + steer + "}"
+        if sensors.truth:
+            self.template += ',"pose":[%r,%r,%r]'
+
+    def observation(self, k: int, end: bool = False, watchdog: bool = False) -> bytes:
+        """The reply for the state now, row ``k`` (``end``: the run is over; ``watchdog``: the
+        watchdog holds the base)."""
+        counts, steer, pose = self.sensors.readings()
+        t = step_times(k, self.dt)
+        vals = (t, *counts, *steer) if pose is None else (t, *counts, *steer, *pose)
+        total = sum(vals)
+        if total - total != 0.0:        # inf or nan somewhere (or an overflowing sum)
+            return self.generic(vals, end, watchdog)
+        text = self.template % vals
+        if end:
+            text += ',"end":true'
+        if watchdog:
+            text += ',"watchdog":true'
+        return (text + "}\n").encode()
+
+    def generic(self, vals, end: bool = False, watchdog: bool = False) -> bytes:
+        """The same reply through the JSON encoder (``vals`` as :meth:`observation` gathers them)."""
+        s = self.sensors
+        nc, ns = len(s.measured), len(s.steered)
+        obs = Observation(vals[0], dict(zip(s.measured, map(int, vals[1:1 + nc]))),
+                          dict(zip(s.steered, vals[1 + nc:1 + nc + ns])),
+                          tuple(vals[1 + nc + ns:]) if s.truth else None)
+        d = _obs_json(obs, end)
+        if watchdog:
+            d["watchdog"] = True
+        return _dumps(d)
 
 
 class _Driver(Driver):
@@ -281,10 +409,12 @@ class _Driver(Driver):
         self.errors = 0
         self.first_error = ""
         self.ended_by = ""          # "bye" | "disconnect" | "duration"
-        self._seen = {}             # line -> parse_message's result (valid lines only)
+        self._seen = {}             # line -> parse's result (valid lines only)
         self.end_t = None
+        self.replies = None         # Replies, made at the first decision
 
     def hello(self, sensors) -> None:
+        self.replies = Replies(sensors)
         r = self.robot
         d = {"hello": "trundle", "protocol": PROTOCOL, "robot": r.name, "step": self.scen.step,
              "duration": self.scen.duration, "clock": self.clock, "watchdog": self.watchdog,
@@ -301,18 +431,20 @@ class _Driver(Driver):
         self.link.send({"error": text})
 
     def parse(self, line, left: int):
-        """A line -> parse_message's tuple, or None after answering an error."""
+        """A line -> ``(kind, command, steps, Decision)`` (parse_message's tuple and the
+        decision it makes), or None after answering an error."""
         if line is None:
             self.error(f"line longer than {MAX_LINE} bytes; send one JSON object per line")
             return None
         try:
             msg = self._seen.get(line)
             if msg is None:
-                msg = parse_message(line, self.robot)
+                kind, cmd, steps = parse_message(line, self.robot)
+                msg = kind, cmd, steps, Decision(cmd, steps)
                 if len(self._seen) < 256:     # clients repeat their lines: check each text once
                     self._seen[line] = msg
-            kind, cmd, steps = msg
-            if kind == "go" and steps > left:
+            if msg[0] == "go" and msg[2] > left:
+                steps = msg[2]
                 raise CommandError(f"steps {steps} would pass the end of the run (duration "
                                    f"{self.scen.duration:g} s): {left} step{'s' if left != 1 else ''} left")
         except CommandError as exc:
@@ -322,7 +454,7 @@ class _Driver(Driver):
             self.error(f"cannot read this message ({type(exc).__name__}: {exc}); send one JSON object per "
                        f"line, e.g. {EXAMPLE}")
             return None
-        return kind, cmd, steps
+        return msg
 
     def end(self, why: str, t: float):
         self.ended_by, self.end_t = why, t
@@ -353,7 +485,7 @@ class LockstepDriver(_Driver):
             self.started = True
             self.hello(sensors)
         else:
-            link.send(_obs_json(sensors.observe(), end=left == 0))
+            link.send_bytes(self.replies.observation(k, left == 0))
         if left == 0:
             return self.end("duration", sensors.sim.t)
         while True:
@@ -363,12 +495,11 @@ class LockstepDriver(_Driver):
             msg = self.parse(line, left)
             if msg is None:
                 continue
-            kind, cmd, steps = msg
-            if kind == "bye":
+            if msg[0] == "bye":
                 return self.end("bye", sensors.sim.t)
-            if cmd is not None:
+            if msg[1] is not None:
                 self.commands += 1
-            return Decision(cmd, steps)
+            return msg[3]
 
 
 class RealtimeDriver(_Driver):
@@ -405,7 +536,7 @@ class RealtimeDriver(_Driver):
             msg = self.parse(line, max(left, 1))
             if msg is None:
                 continue
-            kind, cmd, steps = msg
+            kind, cmd, steps, _ = msg
             if kind == "bye":
                 return self.end("bye", sensors.sim.t)
             self.due.append(k + steps)
@@ -415,16 +546,14 @@ class RealtimeDriver(_Driver):
         now = time.monotonic()
         self.lag = max(self.lag, now - target)
         if left == 0:
-            link.send(_obs_json(sensors.observe(), end=True))
+            link.send_bytes(self.replies.observation(k, True))
             return self.end("duration", sensors.sim.t)
         owed = self.due.count(k)          # one reply per command due now
         if owed:
             self.due = [d for d in self.due if d != k]
-            reply = _obs_json(sensors.observe())
-            if self.tripped:
-                reply["watchdog"] = True
+            reply = self.replies.observation(k, watchdog=self.tripped)
             for _ in range(owed):
-                link.send(reply)
+                link.send_bytes(reply)
         latency = math.nan
         command = None
         if pending is not None:
