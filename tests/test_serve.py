@@ -15,6 +15,7 @@ import sys
 import threading
 import time
 
+import numpy as np
 import pytest
 
 from sim.files.scenario import load_scenario
@@ -397,3 +398,15 @@ def test_link_splits_lines_however_they_arrive():
         assert link.next_line() is ...                                        # gone
     finally:
         link.close()
+
+
+def test_exact_counts_as_plain_floats_are_numpys():
+    from sim.files.robotfile import load_robot
+    from sim.odometry.encoders import Odometer, OdometrySpec
+    robot = load_robot(CART)
+    odo = Odometer(OdometrySpec(wheels=("right", "left")), robot, 0.01)
+    rng = np.random.default_rng(5)
+    angles = [np.array([-0.0, 0.0, 1.0, 2.0]), np.array([1e9, -1e9, 0.0, 0.0]),
+              np.array([2 * math.pi / 2048 * 7, -2 * math.pi / 2048 * 7, 0, 0])] + list(rng.normal(0, 50, (20, 4)))
+    for a in angles:
+        assert odo.reading_list(a) == odo.reading(a).tolist()

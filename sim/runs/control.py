@@ -184,6 +184,7 @@ class Sensors:
         self.encoders = {n: robot.wheel(n).encoder for n in self.measured}
         self.steer_idx = np.array([i for i, w in enumerate(robot.wheels) if w.type in ("steered", "castor")], int)
         self.steered = tuple(robot.wheels[i].name for i in self.steer_idx)
+        self.steer_list = self.steer_idx.tolist()
         self.resolution = np.array([robot.wheels[i].steer_resolution or 0.0 for i in self.steer_idx])
         self.rounded = bool(np.any(self.resolution > 0))
 
@@ -194,13 +195,13 @@ class Sensors:
         sim = self.sim
         if self.settle is not None:
             self.settle()
-        counts = self.reader.reading(sim.angle).tolist() if self.reader is not None else []
+        counts = self.reader.reading_list(sim.angle) if self.reader is not None else []
         steer = []
-        if self.steered:
-            vals = sim.heading[self.steer_idx]
-            if self.rounded:
-                vals = steer_reading(vals, self.resolution)
-            steer = vals.tolist()
+        if self.rounded:
+            steer = steer_reading(sim.heading[self.steer_idx], self.resolution).tolist()
+        elif self.steered:
+            heading = sim.heading.tolist()
+            steer = [heading[i] for i in self.steer_list]
         pose = sim.pose.tolist() if self.truth else None
         return counts, steer, pose
 
