@@ -24,10 +24,13 @@ times; the table shows the median.  Cases:
    same work once everything is loaded;
 9. ``trundle route`` on the bundled ward corridor route with three bases, whole process.
 10. ``trundle serve`` in lockstep on loopback, the ward cart: round trips per second with
-   ``steps: 1`` (a twist, one step, the reply with the counts), from a client in this
-   process (standard library socket and json), beside the engine's own single-step
-   rate (``Simulator.step`` in a loop) and a bare standard-library line echo on the
-   same loopback, the two floors it stands on;
+   ``steps: 1`` (a twist, one step, the reply with the counts), repeating one twist line and
+   cycling through 1,000 different ones (each read afresh), from a lean client in this
+   process (raw socket with TCP_NODELAY, requests encoded beforehand, replies not decoded),
+   with the server's and the client's CPU per round trip; beside it the engine's own
+   single-step rate (``Simulator.step`` in a loop) and a bare standard-library echo of one
+   canned reply per line, driven by the same client, the two floors it stands on; and where
+   the server's CPU goes, measured in this process without sockets;
 11. the same server with ``steps: 100``: engine steps per second;
 12. clearance of a 100,000-row run (the four-module base weaving along a 50 m corridor, dt
     1 ms) against 200 wall segments: the nearest approach to every segment and the first
@@ -50,7 +53,8 @@ Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.  CPU seconds are worth a look on a shared machine, where wall
 time also measures the neighbours.  ``--root DIR`` measures the ``sim`` package
 of another checkout (say the previous version, from ``git worktree add``) with
-this file's cases 1 to 8, 13 and 14.
+this file's cases 1 to 8, 10, 11 (the server; the split without sockets is always
+this checkout's), 13 and 14.
 
 Scenario files are generated (seeded) into a temporary folder.
 """
@@ -348,48 +352,79 @@ def _engine_steps_per_s(seconds: float) -> float:
 
 
 _ECHO = r"""
-import socket, sys
+import socket
 srv = socket.create_server(("127.0.0.1", 0))
 print(srv.getsockname()[1], flush=True)
 conn, _ = srv.accept()
 conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-buf = b""
-while True:
-    data = conn.recv(65536)
-    if not data:
-        break
-    buf += data
-    while b"\n" in buf:
-        line, buf = buf.split(b"\n", 1)
-        conn.sendall(b'{"t":0.01,"counts":{"left":12,"right":13},"steer":{}}\n')
+buf = bytearray(65536)
+reply = b'{"t":0.01,"counts":{"left":12,"right":13},"steer":{"castor_front":0.0,"castor_rear":0.0}}\n'
+while conn.recv_into(buf):        # one request line per read in lockstep
+    conn.sendall(reply)
 """
 
 
-def _echo_rate(seconds: float) -> float:
-    """Round trips per second against a minimal standard-library line echo on loopback: the
-    floor that any Python server of this protocol stands on, on this machine, now."""
-    import socket
+class _LeanClient:
+    """The benchmark's client: a raw socket (TCP_NODELAY), the request pre-encoded, replies
+    read into one reused buffer and not decoded (the last one is, to check it), so the
+    figure measures the server rather than the client."""
+
+    def __init__(self, port: int):
+        import socket
+        self.sock = socket.create_connection(("127.0.0.1", port))
+        self.sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        self.buf = bytearray(1 << 16)
+        self.view = memoryview(self.buf)
+
+    def line(self) -> int:
+        """Read one reply line; returns its length (with the newline)."""
+        n = self.sock.recv_into(self.buf)
+        while n and self.buf[n - 1] != 10:
+            n += self.sock.recv_into(self.view[n:])
+        if not n:
+            raise RuntimeError("the server closed the connection")
+        return n
+
+    def trips(self, msgs) -> int:
+        """One round trip per request in ``msgs`` (encoded lines); returns the last reply's length."""
+        send, recv_into, buf, view = self.sock.sendall, self.sock.recv_into, self.buf, self.view
+        n = 0
+        for msg in msgs:
+            send(msg)
+            n = recv_into(buf)
+            while n and buf[n - 1] != 10:
+                n += recv_into(view[n:])
+            if not n:
+                raise RuntimeError("the server closed the connection")
+        return n
+
+    def close(self) -> None:
+        self.sock.close()
+
+
+def _echo_rate(seconds: float) -> dict:
+    """Round trips per second between the benchmark's client and a minimal standard-library
+    echo of one canned reply per line on loopback: the floor that any Python server of this
+    protocol stands on, on this machine, now."""
     proc = subprocess.Popen([sys.executable, "-c", _ECHO], stdout=subprocess.PIPE, text=True)
     try:
-        sock = socket.create_connection(("127.0.0.1", int(proc.stdout.readline())))
-        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-        rd = sock.makefile("rb")
-        msg = b'{"twist":[0.3,0.0,0.2],"steps":1}\n'
-        n, t0 = 0, time.perf_counter()
+        c = _LeanClient(int(proc.stdout.readline()))
+        msgs = [b'{"twist":[0.3,0.0,0.2],"steps":1}\n'] * 200
+        c.trips(msgs[:100])
+        n, t0, c0, s0 = 0, time.perf_counter(), time.process_time(), _cpu_s(proc.pid)
         while time.perf_counter() - t0 < seconds:
-            for _ in range(100):
-                sock.sendall(msg)
-                json.loads(rd.readline())
-            n += 100
-        rate = n / (time.perf_counter() - t0)
-        rd.close()
-        sock.close()
+            c.trips(msgs)
+            n += 200
+        wall = time.perf_counter() - t0
+        out = {"per_s": n / wall, "server_cpu_us": 1e6 * (_cpu_s(proc.pid) - s0) / n,
+               "client_cpu_us": 1e6 * (time.process_time() - c0) / n}
+        c.close()
         proc.wait(timeout=60)
     finally:
         if proc.poll() is None:
             proc.kill()
             proc.wait()
-    return rate
+    return out
 
 
 def _cpu_s(pid: int) -> float:
@@ -399,36 +434,37 @@ def _cpu_s(pid: int) -> float:
     return (int(parts[11]) + int(parts[12])) / os.sysconf("SC_CLK_TCK")
 
 
-def _serve_rate(folder: str, steps: int, seconds: float) -> dict:
-    """Lockstep round trips against ``trundle serve`` on loopback for about ``seconds``."""
-    import socket
+def _serve_rate(folder: str, steps: int, seconds: float, root: str = ROOT, distinct: bool = False) -> dict:
+    """Lockstep round trips against ``trundle serve`` on loopback for about ``seconds``, from
+    the lean client; the last reply is decoded and its time checked against the steps asked.
+    ``distinct``: cycle through 1,000 different twists (more than the server remembers, so
+    every line is read afresh, as a controller's would be) instead of repeating one."""
     scen = os.path.join(folder, "serve.yaml")
     with open(scen, "w") as fh:
         fh.write(f"robot: {os.path.join(ROBOTS, 'ward-cart.yaml')}\nstep: 0.01\nduration: 1000000\n")
-    env = dict(os.environ, PYTHONPATH=ROOT)
+    env = dict(os.environ, PYTHONPATH=root)
     proc = subprocess.Popen([sys.executable, "-m", "sim", "serve", scen], stdout=subprocess.PIPE,
-                            stderr=subprocess.DEVNULL, text=True, env=env)
+                            stderr=subprocess.DEVNULL, text=True, env=env, cwd=root)
     try:
         host, port = proc.stdout.readline().split()[-1].rsplit(":", 1)
-        sock = socket.create_connection((host, int(port)))
-        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-        rd = sock.makefile("rb")
-        rd.readline()
-        msg = (json.dumps({"twist": [0.3, 0.0, 0.2], "steps": steps}) + "\n").encode()
-        for _ in range(50):                  # warm up
-            sock.sendall(msg)
-            json.loads(rd.readline())
+        c = _LeanClient(int(port))
+        c.line()                                            # hello
+        msgs = [(json.dumps({"twist": [0.3 + i * 1e-4 if distinct else 0.3, 0.0, 0.2], "steps": steps})
+                 + "\n").encode() for i in range(1000 if distinct else 1)] * (1 if distinct else 200)
+        warm = 50
+        c.trips(msgs[:warm])
         n, t0, c0, s0 = 0, time.perf_counter(), time.process_time(), _cpu_s(proc.pid)
         while time.perf_counter() - t0 < seconds:
-            for _ in range(20):
-                sock.sendall(msg)
-                json.loads(rd.readline())
-            n += 20
+            last = c.trips(msgs[n % len(msgs):n % len(msgs) + 200])
+            n += 200
         wall = time.perf_counter() - t0
         client_cpu, server_cpu = time.process_time() - c0, _cpu_s(proc.pid) - s0
-        sock.sendall(b'{"bye": true}\n')
-        rd.readline()
-        sock.close()
+        reply = json.loads(bytes(c.buf[:last]))
+        if reply.get("t") != (warm + n) * steps / 100:
+            raise RuntimeError(f"unexpected reply after {warm + n} requests: {reply}")
+        c.sock.sendall(b'{"bye": true}\n')
+        c.line()
+        c.close()
         proc.wait(timeout=600)
     finally:
         if proc.poll() is None:
@@ -436,6 +472,75 @@ def _serve_rate(folder: str, steps: int, seconds: float) -> dict:
             proc.wait()
     return {"round_trips": n, "wall": wall, "per_s": n / wall, "steps_per_s": n * steps / wall,
             "server_cpu_us": 1e6 * server_cpu / n, "client_cpu_us": 1e6 * client_cpu / n}
+
+
+def _serve_split(folder: str, n: int = 20000) -> dict | None:
+    """Where a lockstep round trip's server CPU goes, measured in this process without sockets
+    (CPU us per round trip, each part in its own warm loop): the engine through its surface
+    (``Simulator.command`` + ``advance(1)``), the reply (``Replies.observation``), reading a
+    twist line never seen before (the plain-twist reader, and the general JSON reader for
+    comparison), and the whole lockstep decision path (driver, engine, reply, parse) fed lines
+    from memory.  None for a checkout without these parts."""
+    sys.path.insert(0, ROOT)
+    try:
+        from sim.runs.serve import LockstepDriver, Replies, parse_json_message, parse_message
+    except ImportError:
+        return None
+    import numpy as np
+    from sim.engine.simulator import Simulator
+    from sim.files.scenario import load_scenario
+    from sim.runs.control import Sensors
+    from sim.runs.runner import run_scenario
+    scen = load_scenario(os.path.join(folder, "serve.yaml"))
+    sim = Simulator(scen.robot, scen.step, scen.start)
+    sensors, out = Sensors(scen, sim), np.empty((1, sim.width))
+    replies = Replies(sensors)
+    lines = [(json.dumps({"twist": [0.3 + i * 1e-4, 0.0, 0.2], "steps": 1})).encode() for i in range(1000)]
+    res = {}
+
+    def cpu(name, fn):
+        fn(200)
+        c0 = time.process_time()
+        fn(n)
+        res[name] = 1e6 * (time.process_time() - c0) / n
+
+    def engine(m):
+        for i in range(m):
+            sim.command("twist", (0.3, 0.0, 0.2 + 1e-6 * (i & 1)))
+            sim.advance(1, out=out)
+
+    def reply(m):
+        k = sim.k
+        for _ in range(m):
+            replies.observation(k)
+
+    def parse(m, reader=parse_message):
+        robot = scen.robot
+        for i in range(m):
+            reader(lines[i % 1000], robot)
+
+    class Lines:       # a link that hands the driver lines from memory and drops its replies
+        peer, turned_away, gone, sent_at = "memory", 0, False, 0.0
+
+        def __init__(self, m):
+            self.left = m
+
+        def send(self, obj):
+            pass
+
+        def send_bytes(self, data):
+            pass
+
+        def next_line(self, deadline=None):
+            self.left -= 1
+            return lines[self.left % 1000] if self.left >= 0 else b'{"bye": true}'
+
+    cpu("engine", engine)
+    cpu("reply", reply)
+    cpu("parse", parse)
+    cpu("json", lambda m: parse(m, parse_json_message))
+    cpu("path", lambda m: run_scenario(scen, controller=LockstepDriver(Lines(m), scen)))
+    return res
 
 
 STUDY_SCENARIO = """\
@@ -646,19 +751,29 @@ def main(argv=None) -> int:
                          "wall_s": r["wall"], "steps_per_s": r["steps"] / r["wall"], "peak_mb": r["peak_mb"]})
         if "10" not in skip or "11" not in skip:
             eng = [_engine_steps_per_s(2.0) for _ in range(args.repeat)]
+            echo = [_echo_rate(2.0) for _ in range(args.repeat)]
             engine = {"per_s": med([e["per_s"] for e in eng]), "cpu_us": med([e["cpu_us"] for e in eng]),
-                      "echo": med([_echo_rate(2.0) for _ in range(args.repeat)])}
-        for case, steps in (("10", 1), ("11", 100)):
+                      "echo": med([e["per_s"] for e in echo]),
+                      "echo_server_us": med([e["server_cpu_us"] for e in echo]),
+                      "echo_client_us": med([e["client_cpu_us"] for e in echo])}
+        for case, steps, distinct in (("10", 1, False), ("10", 1, True), ("11", 100, False)):
             if case in skip:
                 continue
-            runs = [_serve_rate(folder, steps, 3.0) for _ in range(args.repeat)]
-            rows.append({"case": case, "label": f"serve lockstep, steps {steps}: " +
-                         ("round trips" if steps == 1 else "engine steps"),
+            runs = [_serve_rate(folder, steps, 3.0, root, distinct) for _ in range(args.repeat)]
+            what = "engine steps" if steps > 1 else "round trips, 1,000 twists" if distinct else "round trips"
+            rows.append({"case": case, "label": f"serve lockstep, steps {steps}: {what}", "distinct": distinct,
                          "steps": runs[0]["round_trips"] * steps, "wall_s": med([r["wall"] for r in runs]),
                          "steps_per_s": med([r["per_s" if steps == 1 else "steps_per_s"] for r in runs]),
                          "peak_mb": float("nan"), "engine": engine,
                          "server_cpu_us": med([r["server_cpu_us"] for r in runs]),
                          "client_cpu_us": med([r["client_cpu_us"] for r in runs])})
+        if "10" not in skip:
+            split = _serve_split(folder)
+            if split:
+                extra.append("10   server CPU per round trip without sockets (us, in this process): whole "
+                             f"lockstep path {split['path']:.1f}, of which the engine (command + advance(1)) "
+                             f"{split['engine']:.1f}, the reply {split['reply']:.1f}, reading a new twist line "
+                             f"{split['parse']:.1f} (the general JSON reader: {split['json']:.1f})")
         if "14" not in skip:
             runs = [_sub("14", folder, root=root) for _ in range(args.repeat)]
             for fmt in ("csv", "parquet"):
@@ -701,10 +816,16 @@ def main(argv=None) -> int:
                   f"(numpy, numba, the engine); cold cache (compiling): {r['cold']:.1f} s")
         if r["case"] == "10":
             e = r["engine"]
-            print(f"case 10 {r['steps_per_s']:,.0f} round trips/s; CPU per round trip: server "
-                  f"{r['server_cpu_us']:,.0f} us, of which one engine step {e['cpu_us']:,.0f} us "
-                  f"(Simulator.step alone: {e['per_s']:,.0f} steps/s), client {r['client_cpu_us']:,.0f} us; "
-                  f"a bare standard-library line echo on the same loopback: {e['echo']:,.0f} round trips/s")
+            if r["distinct"]:
+                print(f"case 10 with 1,000 different twists (every line read afresh): {r['steps_per_s']:,.0f} "
+                      f"round trips/s; server CPU per round trip {r['server_cpu_us']:,.0f} us")
+            else:
+                print(f"case 10 {r['steps_per_s']:,.0f} round trips/s; CPU per round trip: server "
+                      f"{r['server_cpu_us']:,.0f} us, of which one engine step {e['cpu_us']:,.0f} us "
+                      f"(Simulator.step alone: {e['per_s']:,.0f} steps/s), client {r['client_cpu_us']:,.0f} us; "
+                      f"a bare standard-library line echo on the same loopback with the same client: "
+                      f"{e['echo']:,.0f} round trips/s, CPU per round trip: echo {e['echo_server_us']:,.1f} us, "
+                      f"client {e['echo_client_us']:,.1f} us")
         if r["case"] == "11":
             e = r["engine"]
             print(f"case 11 {r['steps_per_s']:,.0f} steps/s through the server "
