@@ -17,6 +17,7 @@ import os
 import queue
 import signal
 import threading
+import weakref
 
 import numpy as np
 
@@ -25,9 +26,12 @@ from sim.files.atomic import AtomicFile, signals_held
 from sim.traces.meta import PARQUET_KEY, finished, meta_text, write_sidecar
 
 PARQUET_SUFFIX = ".parquet"
-CSV_BLOCK = 8192               # rows formatted at a time (memory: one block of text)
-PARQUET_BLOCK = 65536          # rows handed to the Parquet writer at a time
-ROW_GROUP = 65536              # Parquet rows per row group
+CSV_BLOCK = 8192               # rows a caller's rows are cut into on the way to the writer's thread
+CSV_FRAME = 32768              # rows polars formats at a time (blocks are gathered into frames)
+PARQUET_BLOCK = 32768
+ROW_GROUP = 65536              # Parquet rows per row group, and per frame
+AHEAD = 3                      # Parquet: frames polars may hold before the next is handed over
+BATCH = 1024                   # CSV rows per piece of text polars formats on one thread
 
 
 def row_values(r, extra=()) -> np.ndarray:
@@ -55,8 +59,11 @@ class TraceWriter:
 
     ``write(row)`` and ``write_block(values (m, ncols))`` add rows (float, NaN
     for blank).  The text (or Parquet) is made and written by a thread of the
-    writer, whole blocks at a time, so the run goes on meanwhile and the file
-    only ever holds whole rows; ``rows`` counts the rows in the file.
+    writer, whole frames of rows at a time (Parquet: one row group of
+    ``ROW_GROUP`` rows per frame however the rows were handed in, so the same
+    rows give the same file), so the run goes on meanwhile and the file only
+    ever holds whole rows; ``rows`` counts the rows handed to polars, all of
+    them in the file once :meth:`flush` or :meth:`close` returns.
     ``flush()`` waits until every row given is in the ``.part`` file (a CSV
     ``.part`` is then readable up to there; Parquet only once closed).
     ``close()`` writes what is left, finishes the file, renames it into place
@@ -74,6 +81,7 @@ class TraceWriter:
         self.meta = meta
         self.parquet = is_parquet_path(self.path)
         self.block = block or (PARQUET_BLOCK if self.parquet else CSV_BLOCK)
+        self.frame_rows = ROW_GROUP if self.parquet else CSV_FRAME
         self.rows = 0
         self._buf = []
         self._complete = True
@@ -100,18 +108,28 @@ class TraceWriter:
         if block.ndim != 2 or block.shape[1] != len(self.header):
             raise ValueError(f"expected rows of {len(self.header)} values, got shape {block.shape}")
         for i in range(0, len(block), self.block):
-            # a copy in column order: what polars takes without another copy
-            self._worker.put(np.array(block[i:i + self.block], dtype=np.float64, order="F"))
+            # a copy, transposed: shape (ncols, m), one column after the other, which polars
+            # takes without another copy (numpy's order="F" copy of C-order rows is ~4x slower)
+            self._worker.put(np.ascontiguousarray(block[i:i + self.block].T, dtype=np.float64))
 
     def _drain(self) -> None:
         if self._buf:
-            rows, self._buf = np.array(self._buf, dtype=np.float64, order="F"), []
+            rows, self._buf = np.array(self._buf, dtype=np.float64).T.copy(), []
             self._worker.put(rows)
 
-    def frame(self, block):
-        """A polars frame of float rows (m, ncols), NaN as null."""
+    def frame(self, cols):
+        """A polars frame of the rows whose columns are ``cols`` (ncols, m), NaN as null.
+
+        Only the columns that hold a NaN get the null mask (a NaN anywhere makes the
+        column's sum NaN; a sum that is NaN for another reason only costs a look).
+        """
         import polars as pl
-        return pl.from_numpy(block, schema=self._schema).fill_nan(None)
+        frame = pl.from_numpy(cols.T, schema=self._schema)
+        with np.errstate(invalid="ignore", over="ignore"):
+            nan = np.flatnonzero(np.isnan(np.add.reduce(cols, axis=1)))
+        if nan.size:
+            frame = frame.with_columns([pl.nth(int(j)).fill_nan(None) for j in nan])
+        return frame
 
     def parquet_meta(self, _context=None) -> dict:
         """Key-value metadata for the Parquet footer (called when the file is finished)."""
@@ -225,15 +243,20 @@ class _Stop(Exception):
     pass
 
 
-_END, _CANCEL = object(), object()
+_END, _CANCEL, _FLUSH = object(), object(), object()
 
 
 class _Worker:
     """The writer's thread: takes blocks from a short queue and writes them.
 
-    CSV: polars formats each block and the text is appended to the ``.part``
-    file.  Parquet: the thread runs polars' streaming Parquet writer, whose
-    source is this queue; the footer (with the metadata callback, so it sees
+    The thread runs one of polars' streaming writers (``sink_csv`` or
+    ``sink_parquet``) on the ``.part`` file; its source is this queue, read
+    by :meth:`_frames`, which gathers the blocks into frames of about
+    ``writer.frame_rows`` rows (polars formats and compresses a frame on all
+    its threads while the next one is gathered).  CSV: a flush ends the
+    streaming writer (everything given so far is then in the file) and the
+    next block starts another, which appends.  Parquet: one streaming writer
+    for the whole file; the footer (with the metadata callback, so it sees
     the final row count) is written when the queue ends.  Errors are kept and
     raised as :class:`InputError` by the next :meth:`put`, :meth:`wait` or
     :meth:`finish`.
@@ -243,42 +266,100 @@ class _Worker:
         self.w = writer
         self.q = queue.Queue(maxsize=3)
         self.error = None
+        self.ended = False
+        self.at_flush = False
+        self.freed = threading.Condition()        # rows polars has let go of (Parquet)
+        self.freed_rows = 0
         self.thread = threading.Thread(target=self._parquet if writer.parquet else self._csv,
                                        name="trundle-trace-writer", daemon=True)
         self.thread.start()
 
-    def _blocks(self):
+    def _frames(self, stop_at_flush: bool):
+        """Frames from the queue, in order.  Returns at the end, or (``stop_at_flush``) at a
+        flush, whose marker :meth:`_csv` marks done once the file holds the rows before it."""
+        pending, n = [], 0
         while True:
             item = self.q.get()
-            try:
-                if item is _END:
-                    return
-                if item is _CANCEL:
-                    raise _Stop()
-                yield item
-            finally:
+            if item is _CANCEL:
                 self.q.task_done()
+                raise _Stop()
+            if item is _END or item is _FLUSH:
+                if item is _END:
+                    self.ended = True
+                if item is _END or stop_at_flush:
+                    self.at_flush = item is _FLUSH
+                    if item is _END:
+                        self.q.task_done()
+                    if pending:
+                        yield self._gather(pending)
+                    return
+                self.q.task_done()                 # Parquet: nothing is readable before the end anyway
+                if pending:
+                    yield self._gather(pending)
+                    pending, n = [], 0
+                continue
+            pending.append(item)
+            n += item.shape[1]
+            self.q.task_done()
+            while n >= self.w.frame_rows:          # frames of exactly frame_rows rows (one row group)
+                extra = n - self.w.frame_rows
+                rest = None
+                if extra:
+                    last = pending[-1]
+                    pending[-1], rest = last[:, :last.shape[1] - extra], last[:, last.shape[1] - extra:]
+                yield self._gather(pending)
+                pending, n = ([rest], extra) if extra else ([], 0)
+
+    def _gather(self, pending):
+        """One frame of the blocks (each (ncols, m)), without copying them; rows counted."""
+        import polars as pl
+        if self.w.parquet:
+            self._hold_back()
+            for cols in pending:                   # polars lets go of a block once it is encoded
+                weakref.finalize(cols, self._let_go, cols.shape[1])
+        frames = [self.w.frame(cols) for cols in pending]
+        self.w.rows += sum(cols.shape[1] for cols in pending)
+        return frames[0] if len(frames) == 1 else pl.concat(frames, rechunk=False)
+
+    def _let_go(self, rows):
+        with self.freed:
+            self.freed_rows += rows
+            self.freed.notify_all()
+
+    def _hold_back(self):
+        """Keep memory flat: polars' streaming writer takes frames from its source as fast as
+        they come; wait (a while at most) until it has encoded all but ``AHEAD`` rows."""
+        with self.freed:
+            self.freed.wait_for(lambda: self.w.rows - self.freed_rows <= AHEAD * self.w.frame_rows, timeout=2.0)
+
+    def _source(self, stop_at_flush):
+        from polars.io.plugins import register_io_source
+
+        def source(with_columns, predicate, n_rows, batch_size):
+            return self._frames(stop_at_flush)
+
+        return register_io_source(source, schema=self.w._schema)
 
     def _csv(self):
         fh = self.w._file.fh
         try:
-            for block in self._blocks():
-                self.w.frame(block).write_csv(fh, include_header=False, line_terminator="\r\n", null_value="")
-                self.w.rows += len(block)
+            while not self.ended:
+                for frame in self._frames(True):
+                    frame.write_csv(fh, include_header=False, line_terminator="\r\n", null_value="",
+                                    batch_size=BATCH)
+                self._flushed()                    # the rows before the flush are in the file
         except BaseException as exc:              # noqa: BLE001 - raised in the caller's thread
+            self._flushed()
             self._failed(exc)
 
+    def _flushed(self):
+        if self.at_flush:
+            self.at_flush = False
+            self.q.task_done()
+
     def _parquet(self):
-        from polars.io.plugins import register_io_source
-
-        def source(with_columns, predicate, n_rows, batch_size):
-            for block in self._blocks():
-                frame = self.w.frame(block)
-                self.w.rows += len(block)
-                yield frame
-
         try:
-            register_io_source(source, schema=self.w._schema).sink_parquet(
+            self._source(False).sink_parquet(
                 self.w._file.fh, compression="zstd", compression_level=1, row_group_size=ROW_GROUP,
                 metadata=self.w.parquet_meta)
         except BaseException as exc:              # noqa: BLE001
@@ -311,7 +392,8 @@ class _Worker:
                 continue
 
     def wait(self) -> None:
-        """Until the queue is empty and its last block written."""
+        """Until every block given is written (CSV: in the file; Parquet: taken by polars)."""
+        self.put(_FLUSH)
         self._raise()
         if self.thread.is_alive():
             self.q.join()
