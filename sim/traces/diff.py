@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import fnmatch
 import math
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -280,12 +281,21 @@ def _dev(d, heading) -> str:
     return f"{d:.3e}" + (" rad" if heading else "")
 
 
+def _same(va, vb) -> bool:
+    """Whether two float arrays hold equal values (a blank equals a blank): the same bits
+    (one pass), else value by value (+0 equals -0, NaNs of any payload are equal)."""
+    if np.array_equal(va.view(np.uint64), vb.view(np.uint64)):
+        return True
+    return bool(np.array_equal(va, vb, equal_nan=True))
+
+
 def _deviation(va, vb, heading):
     """Deviations of value pairs, shape (k, m); ``heading`` (m,) bool wraps modulo 2 pi.
 
-    Returns (deviation, blank_mismatch or None when no cell is blank).
+    Returns (deviation, blank mismatches per column (m,) or None when no cell is blank).
     ``|b - a|``; a blank (NaN) equals a blank, and against a number is ``inf``;
-    equal infinities deviate by 0.
+    equal infinities deviate by 0.  Only the columns whose deviations hold a NaN
+    (found by their sum) go through the blank rules.
     """
     with np.errstate(invalid="ignore", over="ignore"):
         d = np.subtract(vb, va)
@@ -293,14 +303,18 @@ def _deviation(va, vb, heading):
             h = np.flatnonzero(heading)
             d[:, h] = np.remainder(d[:, h] + np.pi, 2 * np.pi) - np.pi
         np.abs(d, out=d)
-    nan = np.isnan(d)
-    if not nan.any():
+        odd = np.flatnonzero(np.isnan(np.add.reduce(d, axis=0)))
+    if not odd.size:
         return d, None
-    na, nb = np.isnan(va), np.isnan(vb)
-    blank = na ^ nb
-    d[nan] = np.inf                               # blank against a number; inf - inf
-    d[(na & nb) | (nan & (va == vb))] = 0.0       # blank against blank; equal infinities
-    return d, blank
+    a, b, dd = va[:, odd], vb[:, odd], d[:, odd]
+    na, nb = np.isnan(a), np.isnan(b)
+    nan = np.isnan(dd)
+    dd[nan] = np.inf                              # blank against a number; inf - inf
+    dd[(na & nb) | (nan & (a == b))] = 0.0        # blank against blank; equal infinities
+    d[:, odd] = dd
+    blanks = np.zeros(d.shape[1], np.int64)
+    blanks[odd] = np.count_nonzero(na ^ nb, axis=0)
+    return d, blanks
 
 
 # -- comparing -----------------------------------------------------------------
@@ -373,6 +387,10 @@ class _Compare:
         self.same_text = ra.kind == rb.kind == "csv" and ra.columns == rb.columns
 
     def run(self) -> None:
+        with ThreadPoolExecutor(1, thread_name_prefix="trundle-diff") as self.pool:
+            self._run()
+
+    def _run(self) -> None:
         a, b = self.a, self.b
         while not (a.done and b.done):
             aligned = not (a.t.size or b.t.size)
@@ -417,7 +435,9 @@ class _Compare:
                     side.matched(pa.first_row, pa.first_row + n - 1)
                 self.matched += n
                 return
-        va, vb = a.read(pa), b.read(pb)
+        later = self.pool.submit(b.read, pb)     # the two pages are parsed side by side
+        va = a.read(pa)
+        vb = later.result()
         if len(pb) == n and np.array_equal(va[:, -1], vb[:, -1]):
             rows = pa.first_row + np.arange(n)
             self._accumulate(va[:, :-1], vb[:, :-1], rows, va[:, -1], vb[:, -1])
@@ -464,23 +484,21 @@ class _Compare:
 
     def _accumulate(self, va, vb, rows, ta, tb) -> None:
         """Fold matched rows (values (k, m), A's data rows (k,), times (k,)) into the report."""
-        d, blank = _deviation(va, vb, self.heading)
         if self.equal:
-            same = va == vb
-            if blank is not None:
-                same |= np.isnan(va) & np.isnan(vb)
-            self.equal = bool(same.all())
-        if blank is not None:
-            self.blanks += blank.sum(axis=0)
-        if self.first is None:
-            hit = np.flatnonzero((d > self.tol).any(axis=1))
-            if hit.size:
-                j = int(hit[0])
-                cols = [(self.names[m], float(va[j, m]), float(vb[j, m]), float(d[j, m]), float(self.tol[m]))
-                        for m in np.flatnonzero(d[j] > self.tol)]
-                self.first = Divergence(int(rows[j]), float(ta[j]), float(tb[j]), cols)
+            if _same(va, vb):
+                return                             # every deviation 0: nothing to fold in
+            self.equal = False
+        d, blanks = _deviation(va, vb, self.heading)
+        if blanks is not None:
+            self.blanks += blanks
         top = d.argmax(axis=0)
         val = d[top, np.arange(d.shape[1])]
+        if self.first is None and bool((val > self.tol).any()):
+            hit = np.flatnonzero((d > self.tol).any(axis=1))
+            j = int(hit[0])
+            cols = [(self.names[m], float(va[j, m]), float(vb[j, m]), float(d[j, m]), float(self.tol[m]))
+                    for m in np.flatnonzero(d[j] > self.tol)]
+            self.first = Divergence(int(rows[j]), float(ta[j]), float(tb[j]), cols)
         for m in np.flatnonzero(val > self.max_dev):
             j = top[m]
             self.max_dev[m], self.max_row[m], self.max_t[m] = val[m], rows[j], ta[j]

@@ -123,8 +123,8 @@ class Page:
         indices, default all): float64 (len(rows), len(cols)), Fortran order, NaN blank."""
         rd = self.reader
         cols = list(range(rd.nc)) if cols is None else [int(c) for c in cols]
-        uniq = sorted(set(cols))
-        if uniq != cols:                   # polars gives columns in file order: read them so, then arrange
+        uniq = list(dict.fromkeys(cols))
+        if len(uniq) != len(cols):         # a column asked for twice: read it once
             got = self.values(rows, uniq)
             return np.asfortranarray(got[:, [uniq.index(c) for c in cols]])
         if self.data is None:
@@ -338,14 +338,14 @@ class TraceReader:
         import polars as pl
         if b'"' in data or _count(data, 44) != n * (self.nc - 1):
             return None
-        try:
-            frame = pl.read_csv(io.BytesIO(data), has_header=False, schema=self._float_schema,
-                                columns=list(cols), raise_if_empty=False)
+        try:   # polars reads the columns in file order; select puts them in the order asked (no copy)
+            frame = pl.read_csv(data, has_header=False, schema=self._float_schema,
+                                columns=sorted(set(cols)), raise_if_empty=False)
         except Exception:                                     # noqa: BLE001 - the careful pass says what
             return None
         if len(frame) != n:
             return None
-        return frame.to_numpy(order="fortran").astype(np.float64, copy=False)
+        return frame.select([self.keys[c] for c in cols]).to_numpy(order="fortran").astype(np.float64, copy=False)
 
     def careful(self, lines, idx, page, cols) -> np.ndarray:
         """The slower pass: lines cell by cell (csv module, ``float``); InputError at the first bad one."""
