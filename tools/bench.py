@@ -45,9 +45,12 @@ times; the table shows the median.  Cases:
     threads) and file size;
 15. ``trundle diff`` of two million-row traces (the two-castor cart of case 3): identical, and
     every row differing (the second run's right wheel 0.1 um larger), as CSV and as Parquet;
-    wall time and peak memory.
+    wall time, CPU seconds of the process (user + system) and peak memory.
 16. a command log with a command for every step: the ward cart replaying a 1 kHz log of
     wheel commands (200,001 rows, read before timing), 200 s at dt 1 ms, no CSV;
+
+Cases 14 and 15 also print the load average (1 min) when they ran: on a shared
+machine the wall time follows the load, the CPU seconds much less.
 
 Peak memory is the largest resident size of the process (and of any processes it
 starts), sampled.  CPU seconds are worth a look on a shared machine, where wall
@@ -76,6 +79,7 @@ import time
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 ROBOTS = os.path.join(ROOT, "scenarios", "robots")
 NAIVE_STEPS = 20_000
+CASES = [str(c) for c in range(1, 17)]
 
 
 def _write_cases(folder: str, duration: float = 1000.0) -> None:
@@ -612,15 +616,21 @@ def _sub(case, folder, env=None, root=ROOT) -> dict:
     return json.loads(r.stdout.strip().splitlines()[-1])
 
 
-def _timed(cmd, root=ROOT) -> float:
+def _timed(cmd, root=ROOT, cpu=False):
+    """Wall seconds of a whole process (and, with ``cpu``, its CPU seconds, user + system)."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     t = time.perf_counter()
     subprocess.run(cmd, capture_output=True, check=False, cwd=root,
                    env=dict(os.environ, PYTHONPATH=root + os.pathsep + os.environ.get("PYTHONPATH", "")))
-    return time.perf_counter() - t
+    wall = time.perf_counter() - t
+    if not cpu:
+        return wall
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return wall, (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
 
 
 def _diff_case(folder, root, repeat) -> list:
-    """Case 14: make the traces with ``root``'s writer, then time its ``trundle diff`` on them."""
+    """Case 15: make the traces with ``root``'s writer, then time its ``trundle diff`` on them."""
     import shutil
     _write_diff_cases(folder)
     code = ("import sys; sys.path.insert(0, {root!r}); from sim import load_scenario, run_scenario; "
@@ -636,13 +646,17 @@ def _diff_case(folder, root, repeat) -> list:
         paths["a2"] = os.path.join(folder, f"diff-a2.{fmt}")
         shutil.copyfile(paths["a"], paths["a2"])
         for label, other in (("identical", "a2"), ("every row differs", "b")):
-            walls, peaks = [], []
+            walls, cpus, peaks, loads = [], [], [], []
             for _ in range(repeat):
                 cmd = [sys.executable, "-m", "sim", "diff", paths["a"], paths[other]]
+                loads.append(os.getloadavg()[0])
                 with _PeakTree() as mem:
-                    walls.append(_timed(cmd, root))
+                    wall, cpu = _timed(cmd, root, cpu=True)
+                walls.append(wall)
+                cpus.append(cpu)
                 peaks.append(mem.peak)
             out.append({"fmt": fmt, "label": label, "wall": statistics.median(walls), "peak_mb": max(peaks),
+                        "cpu": statistics.median(cpus), "load": statistics.median(loads),
                         "mb": os.path.getsize(paths["a"]) / 1e6})
         for p in paths.values():
             for q in (p, p + ".meta.json"):
@@ -666,7 +680,7 @@ def main(argv=None) -> int:
         return 0
     skip = set(filter(None, args.skip.split(",")))
     if args.only:
-        skip = {str(c) for c in range(1, 17)} - set(args.only.split(","))
+        skip = set(CASES) - set(args.only.split(","))
     extra = []
     rows = []
     with tempfile.TemporaryDirectory(prefix="trundle-bench-") as folder:
@@ -775,17 +789,24 @@ def main(argv=None) -> int:
                              f"{split['engine']:.1f}, the reply {split['reply']:.1f}, reading a new twist line "
                              f"{split['parse']:.1f} (the general JSON reader: {split['json']:.1f})")
         if "14" not in skip:
-            runs = [_sub("14", folder, root=root) for _ in range(args.repeat)]
+            loads = []
+            runs = []
+            for _ in range(args.repeat):
+                loads.append(os.getloadavg()[0])
+                runs.append(_sub("14", folder, root=root))
             for fmt in ("csv", "parquet"):
                 if fmt in runs[0]:
                     wall = med([r[fmt]["wall"] for r in runs])
+                    cpu = med([r[fmt]["cpu"] for r in runs])
                     extra.append(f"14   writer alone, {fmt:<8} {runs[0]['rows'] / wall:>10,.0f} rows/s  "
-                                 f"wall {wall:.2f} s  cpu {med([r[fmt]['cpu'] for r in runs]):.2f} s  "
-                                 f"{runs[0][fmt]['mb']:.0f} MB  ({runs[0]['columns']} columns)")
+                                 f"wall {wall:.2f} s  cpu {cpu:.2f} s ({runs[0]['rows'] / cpu:,.0f} rows per "
+                                 f"CPU second)  {runs[0][fmt]['mb']:.0f} MB  ({runs[0]['columns']} columns; "
+                                 f"load {med(loads):.1f})")
         if "15" not in skip:
             for r in _diff_case(folder, root, args.repeat):
                 extra.append(f"15   diff 10^6 rows, {r['fmt']:<8} {r['label']:<18} wall {r['wall']:.2f} s  "
-                             f"peak {r['peak_mb']:.0f} MB  ({r['mb']:.0f} MB per file)")
+                             f"cpu {r['cpu']:.2f} s  peak {r['peak_mb']:.0f} MB  ({r['mb']:.0f} MB per file; "
+                             f"load {r['load']:.1f})")
     sys.path.insert(0, root)
     import numpy
     import polars
