@@ -295,25 +295,28 @@ def _deviation(va, vb, heading):
     Returns (deviation, blank mismatches per column (m,) or None when no cell is blank).
     ``|b - a|``; a blank (NaN) equals a blank, and against a number is ``inf``;
     equal infinities deviate by 0.  Only the columns whose deviations hold a NaN
-    (found by their sum) go through the blank rules.
+    (found by their sum) go through the blank rules; heading and blank columns are
+    worked on in place, one column at a time (no gathered copies).
     """
     with np.errstate(invalid="ignore", over="ignore"):
-        d = np.subtract(vb, va)
-        if heading.any():
-            h = np.flatnonzero(heading)
-            d[:, h] = np.remainder(d[:, h] + np.pi, 2 * np.pi) - np.pi
+        d = np.subtract(vb, va, order="F")
+        for j in np.flatnonzero(heading):
+            col = d[:, j]
+            np.add(col, np.pi, out=col)
+            np.remainder(col, 2 * np.pi, out=col)
+            np.subtract(col, np.pi, out=col)
         np.abs(d, out=d)
         odd = np.flatnonzero(np.isnan(np.add.reduce(d, axis=0)))
     if not odd.size:
         return d, None
-    a, b, dd = va[:, odd], vb[:, odd], d[:, odd]
-    na, nb = np.isnan(a), np.isnan(b)
-    nan = np.isnan(dd)
-    dd[nan] = np.inf                              # blank against a number; inf - inf
-    dd[(na & nb) | (nan & (a == b))] = 0.0        # blank against blank; equal infinities
-    d[:, odd] = dd
     blanks = np.zeros(d.shape[1], np.int64)
-    blanks[odd] = np.count_nonzero(na ^ nb, axis=0)
+    for j in odd:
+        a, b, col = va[:, j], vb[:, j], d[:, j]
+        na, nb = np.isnan(a), np.isnan(b)
+        nan = np.isnan(col)
+        col[nan] = np.inf                         # blank against a number; inf - inf
+        col[(na & nb) | (nan & (a == b))] = 0.0   # blank against blank; equal infinities
+        blanks[j] = np.count_nonzero(na ^ nb)
     return d, blanks
 
 
