@@ -375,6 +375,8 @@ def test_at_needs_png_and_a_time_within_the_run(cli, expect_input_error, tmp_pat
     for bad in ("-1", "6.5", "nan"):
         code, _, err = cli(["run", scen, "--png", tmp_path / "a.png", "--at", bad])
         expect_input_error(code, err, "--at", None, "from 0 to the end of the run (6 s)")
+    code, _, err = cli(["run", scen, "--png", tmp_path / "a.jpg"])    # PNG bytes under another name: refused
+    expect_input_error(code, err, "--png", None, "ending in .png")
     assert list(tmp_path.iterdir()) == []
 
 

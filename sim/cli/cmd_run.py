@@ -38,6 +38,8 @@ def run(args) -> int:
 
     if args.every < 1:
         raise InputError("--every", None, f"must be a whole number >= 1, got {args.every}")
+    if args.png and not str(args.png).lower().endswith(".png"):
+        raise InputError("--png", None, f"the picture is a PNG file: give a path ending in .png, got {args.png!r}")
     if args.window or args.png or args.frames:
         from sim.errors import require
         require("pygame", "--window/--png/--frames")

@@ -201,7 +201,7 @@ class DiffReport:
         out = []
         for lab, path, rows, cols, step in ((label_a, self.path_a, self.rows_a, self.columns_a, self.step_a),
                                             (label_b, self.path_b, self.rows_b, self.columns_b, self.step_b)):
-            st = f", step {step:g} s" if step is not None else ""
+            st = f", a row every {step:g} s" if step is not None else ""
             out.append(f"{lab:<9} {path}: {rows} rows{st}, {len(cols)} columns")
         out.append(f"result    {self.status.upper()}")
         if self.only_a:
