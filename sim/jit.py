@@ -37,17 +37,13 @@ def physics(fn):
     return fn
 
 
-def kernel(fn=None, *, inline=False):
+def kernel(fn):
     """Compile ``fn`` with :data:`OPTIONS` now (lazily on first call); makes sure
-    the physics it may call is compiled too.  ``@kernel(inline=True)`` inlines ``fn``
-    into the compiled functions that call it (numba's ``inline="always"``): the step
-    inside a loop of steps runs about a quarter faster so, as the compiler then sees
-    the views and checks the loop repeats."""
-    if fn is None:
-        return lambda f: kernel(f, inline=inline)
+    the physics it may call is compiled too.  A compiled call takes a reference count
+    (an atomic operation) on each array it is given, every time: a loop of many cheap
+    steps belongs inside one function (as :func:`sim.engine.step.step_into` does)."""
     compile_all()
-    opts = dict(OPTIONS, inline="always") if inline else OPTIONS
-    return _numba().njit(**opts)(fn)
+    return _numba().njit(**OPTIONS)(fn)
 
 
 def compile_all() -> None:

@@ -313,7 +313,7 @@ def run_tracking(P, S, g, A, Pm, rows, Wk, out, extra, law, lead, t0, plan_t, pl
         control(law, g[G_X:G_TH + 1], now, lead, t - t0, dt, plan_t, plan_pose, plan_speed, plan_hint,
                 plan_index, path_xy, frame, gains, size, steered, ctl)
         set_twist(g, ctl[0], ctl[1], ctl[2])
-        step_into(P, S, g, A, Pm, rows, Wk, out[j])
+        step_into(P, S, g, A, Pm, rows, Wk, out, j, j + 1)
         for i in range(3):
             extra[j, i] = ctl[3 + i]
         extra[j, 3] = ctl[6]
