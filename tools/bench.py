@@ -414,13 +414,8 @@ def _echo_rate(seconds: float) -> dict:
         c = _LeanClient(int(proc.stdout.readline()))
         msgs = [b'{"twist":[0.3,0.0,0.2],"steps":1}\n'] * 200
         c.trips(msgs[:100])
-        n, t0, c0, s0 = 0, time.perf_counter(), time.process_time(), _cpu_s(proc.pid)
-        while time.perf_counter() - t0 < seconds:
-            c.trips(msgs)
-            n += 200
-        wall = time.perf_counter() - t0
-        out = {"per_s": n / wall, "server_cpu_us": 1e6 * (_cpu_s(proc.pid) - s0) / n,
-               "client_cpu_us": 1e6 * (time.process_time() - c0) / n}
+        n, wall, client_cpu, server_cpu, _ = _timed_trips(c, msgs, seconds, proc.pid)
+        out = {"per_s": n / wall, "server_cpu_us": 1e6 * server_cpu / n, "client_cpu_us": 1e6 * client_cpu / n}
         c.close()
         proc.wait(timeout=60)
     finally:
@@ -428,6 +423,17 @@ def _echo_rate(seconds: float) -> dict:
             proc.kill()
             proc.wait()
     return out
+
+
+def _timed_trips(c, msgs, seconds: float, pid: int) -> tuple:
+    """Round trips from client ``c``, 200 requests at a time taken in turn from ``msgs``, for
+    about ``seconds``: (round trips, wall s, client CPU s, server ``pid``'s CPU s, the end of
+    the last reply in ``c.buf``)."""
+    n, t0, c0, s0 = 0, time.perf_counter(), time.process_time(), _cpu_s(pid)
+    while time.perf_counter() - t0 < seconds:
+        last = c.trips(msgs[n % len(msgs):n % len(msgs) + 200])
+        n += 200
+    return n, time.perf_counter() - t0, time.process_time() - c0, _cpu_s(pid) - s0, last
 
 
 def _cpu_s(pid: int) -> float:
@@ -456,12 +462,7 @@ def _serve_rate(folder: str, steps: int, seconds: float, root: str = ROOT, disti
                  + "\n").encode() for i in range(1000 if distinct else 1)] * (1 if distinct else 200)
         warm = 50
         c.trips(msgs[:warm])
-        n, t0, c0, s0 = 0, time.perf_counter(), time.process_time(), _cpu_s(proc.pid)
-        while time.perf_counter() - t0 < seconds:
-            last = c.trips(msgs[n % len(msgs):n % len(msgs) + 200])
-            n += 200
-        wall = time.perf_counter() - t0
-        client_cpu, server_cpu = time.process_time() - c0, _cpu_s(proc.pid) - s0
+        n, wall, client_cpu, server_cpu, last = _timed_trips(c, msgs, seconds, proc.pid)
         reply = json.loads(bytes(c.buf[:last]))
         if reply.get("t") != (warm + n) * steps / 100:
             raise RuntimeError(f"unexpected reply after {warm + n} requests: {reply}")
