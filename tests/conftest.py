@@ -17,6 +17,7 @@ them too):
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import pathlib
@@ -94,6 +95,20 @@ def run_module(args, cwd=None, timeout=120):
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
     return subprocess.run([sys.executable, "-m", "sim", *map(str, args)], cwd=cwd or ROOT,
                           env=env, capture_output=True, text=True, timeout=timeout)
+
+
+def run_bad_scenario(folder, text: str, files: dict):
+    """``trundle run s.yaml --csv out.csv`` in ``folder`` on scenario ``text`` (written as is)
+    with ``files`` beside it; checks it printed nothing on stdout and left no ``out.csv*``.
+    Returns (exit code, stderr) for :func:`expect_input_error`."""
+    folder = pathlib.Path(folder)
+    write_files(folder, files)
+    (folder / "s.yaml").write_text(text, encoding="utf-8")
+    with contextlib.chdir(folder):
+        code, out, err = cli(["run", "s.yaml", "--csv", "out.csv"])
+    assert out == ""
+    assert not any(p.name.startswith("out.csv") for p in folder.iterdir()), os.listdir(folder)
+    return code, err
 
 
 def expect_input_error(code, err, path, line, *fragments):
@@ -181,6 +196,11 @@ def _cli():
 @pytest.fixture(scope="session", name="run_module")
 def _run_module():
     return run_module
+
+
+@pytest.fixture(scope="session", name="run_bad_scenario")
+def _run_bad_scenario():
+    return run_bad_scenario
 
 
 @pytest.fixture(scope="session", name="expect_input_error")
