@@ -177,19 +177,11 @@ class Simulator:
         S, g = self._S, self._g
         updates = []
         for name, cmd in wheels.items():
-            if name not in self.robot.index:
-                raise ValueError(f"no wheel named {name!r}; wheels: {', '.join(self.robot.index)}")
-            i = self.robot.index[name]
             if not isinstance(cmd, dict):
                 cmd = {"spin": cmd}
-            if "spin" in cmd:
-                if not self._driven[i]:
-                    raise ValueError(f"wheel {name} is not driven; it cannot take a spin command")
-                updates.append((K.SPIN_CMD, i, float(cmd["spin"])))
-            if "steer" in cmd:
-                if not self._steered[i]:
-                    raise ValueError(f"wheel {name} is not steered; it cannot take a steer command")
-                updates.append((K.STEER_CMD, i, float(cmd["steer"])))
+            for part in ("spin", "steer"):
+                if part in cmd:
+                    updates.append((*self._command_slot(name, part), float(cmd[part])))
         for row, i, v in updates:
             if not math.isfinite(v):
                 raise ValueError(f"wheel commands must be finite, got {v}")
@@ -212,16 +204,28 @@ class Simulator:
             return Timed(steps, True, np.zeros(0, np.int64), np.zeros(0, np.int64), full)
         if kind != "wheels":
             raise ValueError(f"timed commands are twist or wheels, got {kind!r}")
-        which, wheel = [], []
-        for c in columns:
+        slots = []
+        for c in columns:                      # NAME.spin / NAME.steer
             name, _, part = c.partition(".")
-            i = self.robot.index.get(name)
-            ok = i is not None and ((part == "spin" and self._driven[i]) or (part == "steer" and self._steered[i]))
-            if not ok:
-                raise ValueError(f"column {c!r}: a driven wheel's NAME.spin or a steered wheel's NAME.steer")
-            which.append(K.SPIN_CMD if part == "spin" else K.STEER_CMD)
-            wheel.append(i)
-        return Timed(steps, False, np.array(which, np.int64), np.array(wheel, np.int64), values)
+            slots.append(self._command_slot(name, part))
+        return Timed(steps, False, np.array([r for r, _ in slots], np.int64), np.array([i for _, i in slots], np.int64),
+                     values)
+
+    def _command_slot(self, name: str, part: str) -> tuple:
+        """(row of the state, wheel index) a ``spin`` or ``steer`` command of wheel ``name`` sets;
+        ValueError when there is no such wheel or it cannot take that command."""
+        if name not in self.robot.index:
+            raise ValueError(f"no wheel named {name!r}; wheels: {', '.join(self.robot.index)}")
+        i = self.robot.index[name]
+        if part == "spin":
+            if not self._driven[i]:
+                raise ValueError(f"wheel {name} is not driven; it cannot take a spin command")
+            return K.SPIN_CMD, i
+        if part == "steer":
+            if not self._steered[i]:
+                raise ValueError(f"wheel {name} is not steered; it cannot take a steer command")
+            return K.STEER_CMD, i
+        raise ValueError(f"wheel {name}: a command is spin or steer, got {part!r}")
 
     def advance_timed(self, m: int, timed: "Timed", out: np.ndarray | None = None) -> Block:
         """Run ``m`` steps, applying the commands of ``timed`` as their steps come, in compiled
