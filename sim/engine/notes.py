@@ -151,7 +151,8 @@ class Tally:
 
     @property
     def kinds(self) -> dict:
-        """``{kind: {first_t, rows, extreme, extreme_t, ...}}`` for the kinds that occurred."""
+        """``{kind: {first_t, rows, extreme, extreme_t, ..., seconds}}`` for the kinds that occurred
+        (times and seconds in s, the extreme in the kind's unit)."""
         out = {}
         for j, kind in enumerate(KINDS):
             o = K0 + KIND_SLOTS * j
@@ -166,16 +167,8 @@ class Tally:
                 first = self.acc[T_WHEELS:]
                 order = sorted(np.flatnonzero(first == first), key=lambda i: (first[i], i))
                 d["wheels"] = [self.robot.wheels[i].name for i in order]
+            d["seconds"] = rows * self.dt
             out[kind] = d
-        return out
-
-    def as_dict(self) -> dict:
-        """``{kind: {first_t, seconds, extreme, extreme_t, ...}}`` (s, and the kind's unit)."""
-        out = {}
-        for kind, d in self.kinds.items():
-            e = dict(d)
-            e["seconds"] = d["rows"] * self.dt
-            out[kind] = e
         return out
 
     def lines(self) -> list:
@@ -184,24 +177,24 @@ class Tally:
         k = self.kinds
         if "held" in k:
             d = k["held"]
-            out.append(f"drives held for steering from t={d['first_t']:g} s, {d['rows'] * self.dt:g} s in all "
+            out.append(f"drives held for steering from t={d['first_t']:g} s, {d['seconds']:g} s in all "
                        f"(largest steering to go {math.degrees(d['extreme']):.1f} deg)")
         if "scaled" in k:
             d = k["scaled"]
-            out.append(f"requests scaled down by max_spin from t={d['first_t']:g} s, {d['rows'] * self.dt:g} s in all "
+            out.append(f"requests scaled down by max_spin from t={d['first_t']:g} s, {d['seconds']:g} s in all "
                        f"(smallest factor {d['extreme']:.4g} at t={d['extreme_t']:g} s)")
         if "projected" in k:
             d = k["projected"]
             vx, vy, w = d["twist"]
             out.append(f"requests the fixed wheels forbid, projected from t={d['first_t']:g} s, "
-                       f"{d['rows'] * self.dt:g} s in all (largest shortfall at t={d['extreme_t']:g} s: "
+                       f"{d['seconds']:g} s in all (largest shortfall at t={d['extreme_t']:g} s: "
                        f"vx {vx:.4g} m/s, vy {vy:.4g} m/s, omega {w:.4g} rad/s, requested minus followed)")
         if "skid" in k:
             d = k["skid"]
-            out.append(f"skid steering from t={d['first_t']:g} s, {d['rows'] * self.dt:g} s in all: wheel speeds "
+            out.append(f"skid steering from t={d['first_t']:g} s, {d['seconds']:g} s in all: wheel speeds "
                        f"whose least-squares motion is the request (peak slip {d['extreme']:.4g} m/s)")
         if "at_limit" in k:
             d = k["at_limit"]
             out.append(f"steering goal beyond a limit for {', '.join(d['wheels'])} from t={d['first_t']:g} s, "
-                       f"{d['rows'] * self.dt:g} s in all (the wheel holds at its limit and slips)")
+                       f"{d['seconds']:g} s in all (the wheel holds at its limit and slips)")
         return out

@@ -389,7 +389,7 @@ def run_scenario(scen: Scenario, csv: str | None = None, every: int = 1, keep: b
     if odo:
         res.odometry = odo.summary()
     _figures(res, tally)
-    res.decisions, res.notes = tally.as_dict(), tally.lines()
+    res.decisions, res.notes = tally.kinds, tally.lines()
     if loop:
         res.tracking = loop.summary()
     res.checks = checks.evaluate(res, res.odometry)
